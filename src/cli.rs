@@ -1,0 +1,82 @@
+//! The command-line definition (clap derive). Parsing only: each subcommand's arguments
+//! are turned into typed options in [`crate::commands`], which do the work.
+
+use std::path::PathBuf;
+
+use clap::{Args, Parser, Subcommand};
+
+use crate::report::Format;
+
+/// Forecasts of primordial non-Gaussianity from CMB bispectra and 3D galaxy surveys.
+///
+/// Units: CMB lengths in Mpc; survey wavenumbers in h/Mpc; f_NL in the CMB convention
+/// (growth normalized to a in matter domination). Every command states its units in its
+/// output header.
+#[derive(Debug, Parser)]
+#[command(name = "ngreach", version, about, long_about = None, propagate_version = true)]
+pub struct Cli {
+    /// What to compute.
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+/// Options every physics command accepts.
+#[derive(Debug, Clone, Args)]
+pub struct CommonArgs {
+    /// TOML file with a [cosmology] table (missing keys: Planck 2018 base LCDM).
+    #[arg(long, value_name = "FILE")]
+    pub cosmology: Option<PathBuf>,
+    /// Output format.
+    #[arg(long, value_enum, default_value_t = Format::Table)]
+    pub format: Format,
+}
+
+/// The subcommands.
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Run the main forecast on a scenario (the embedded demo when no file is given).
+    Run(RunArgs),
+    /// Background cosmology: H(z), distances, growth, sigma_8.
+    Background(BackgroundArgs),
+}
+
+/// `ngreach run`.
+#[derive(Debug, Args)]
+pub struct RunArgs {
+    /// Scenario file (TOML). Without it, the embedded demo scenario runs.
+    #[arg(value_name = "SCENARIO")]
+    pub scenario: Option<PathBuf>,
+    /// Folder for the output files.
+    #[arg(long, value_name = "DIR", default_value = "ngreach-out")]
+    pub out: PathBuf,
+    /// Shared options.
+    #[command(flatten)]
+    pub common: CommonArgs,
+}
+
+/// `ngreach background`.
+#[derive(Debug, Args)]
+pub struct BackgroundArgs {
+    /// Redshifts, comma separated (default: a grid from 0 to 1100).
+    #[arg(
+        long,
+        value_name = "LIST",
+        value_delimiter = ',',
+        allow_hyphen_values = true
+    )]
+    pub z: Option<Vec<f64>>,
+    /// Shared options.
+    #[command(flatten)]
+    pub common: CommonArgs,
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use clap::CommandFactory;
+
+    #[test]
+    fn verify_cli() {
+        Cli::command().debug_assert();
+    }
+}

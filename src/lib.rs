@@ -1,0 +1,35 @@
+//! # ngreach
+//!
+//! Forecasts of how tightly a CMB experiment and a 3D galaxy survey constrain primordial
+//! non-Gaussianity (f_NL of the local, equilateral, orthogonal and intermediate shapes),
+//! on one footing.
+//!
+//! ## Pipeline
+//! [`cosmology`] (background, growth, linear power) -> CMB physics and survey physics ->
+//! shapes -> two Fisher engines on one [`fisher::FisherMatrix`] type -> combine ->
+//! [`report`] -> [`cli`].
+//!
+//! ## Conventions
+//! - Lengths in Mpc and wavenumbers in 1/Mpc inside the library; survey inputs and outputs
+//!   in h/Mpc and (Mpc/h)^3 as the trade uses them, with the unit in every key name.
+//! - Primordial potential Phi = (3/5) zeta (matter domination); P_Phi = (9/25) P_zeta.
+//! - f_NL is in the CMB convention: the growth factor that links Phi to the density is
+//!   normalized to a in matter domination ([`cosmology::Growth::d_md`]).
+
+#![forbid(unsafe_code)]
+#![warn(missing_docs)]
+
+pub mod cli;
+pub mod commands;
+pub mod constants;
+pub mod cosmology;
+pub mod error;
+pub mod fisher;
+pub mod input;
+pub mod numerics;
+pub mod report;
+
+pub use error::{Error, Location, Result};
+
+/// The crate version, written into every output.
+pub const VERSION: &str = env!("CARGO_PKG_VERSION");

@@ -1,0 +1,271 @@
+//! Output: tables, CSV and JSON built from plain result rows. Nothing in the physics
+//! modules prints; commands build a [`Report`] and render it here.
+//!
+//! Every rendering carries the units: the table and CSV forms start with `# ` comment
+//! lines (the command, the version, the units), and JSON keys carry their unit in the
+//! name (`_mpc`, `_h_mpc`, `_uk2`, ...). JSON is one object with `version`, the resolved
+//! `inputs`, any top-level summary values, and `rows`.
+
+use serde_json::{Map, Value};
+
+/// Output format of a command.
+#[derive(
+    Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum, serde::Serialize, serde::Deserialize,
+)]
+#[serde(rename_all = "lowercase")]
+pub enum Format {
+    /// Aligned text for the terminal.
+    Table,
+    /// One JSON object.
+    Json,
+    /// Comma-separated values with `#` comment lines on top.
+    Csv,
+}
+
+/// A tabular result with its metadata.
+#[derive(Debug, Clone)]
+pub struct Report {
+    /// The command that made it (`background`, ...).
+    pub command: String,
+    /// Comment lines stating units and conventions (without the leading `# `).
+    pub notes: Vec<String>,
+    /// The resolved inputs.
+    pub inputs: Value,
+    /// Top-level summary values (shown above the table; top-level keys in JSON).
+    pub summary: Vec<(String, Value)>,
+    /// Column names (JSON row keys, CSV header).
+    pub columns: Vec<String>,
+    /// Rows of cells, one per column.
+    pub rows: Vec<Vec<Value>>,
+    /// Extra top-level JSON values not shown in table/CSV form (e.g. Fisher matrices).
+    pub json_extra: Vec<(String, Value)>,
+}
+
+impl Report {
+    /// An empty report for a command.
+    pub fn new(command: &str) -> Self {
+        Self {
+            command: command.to_string(),
+            notes: Vec::new(),
+            inputs: Value::Null,
+            summary: Vec::new(),
+            columns: Vec::new(),
+            rows: Vec::new(),
+            json_extra: Vec::new(),
+        }
+    }
+
+    /// Renders in a format.
+    pub fn render(&self, format: Format) -> String {
+        match format {
+            Format::Json => self.to_json_string(),
+            Format::Csv => self.to_csv(),
+            Format::Table => self.to_table(),
+        }
+    }
+
+    /// The JSON object.
+    pub fn to_json(&self) -> Value {
+        let mut obj = Map::new();
+        obj.insert("version".into(), Value::String(crate::VERSION.into()));
+        obj.insert("command".into(), Value::String(self.command.clone()));
+        obj.insert(
+            "units".into(),
+            Value::Array(self.notes.iter().cloned().map(Value::String).collect()),
+        );
+        obj.insert("inputs".into(), self.inputs.clone());
+        for (k, v) in self.summary.iter().chain(&self.json_extra) {
+            obj.insert(k.clone(), v.clone());
+        }
+        let rows = self
+            .rows
+            .iter()
+            .map(|r| {
+                let mut m = Map::new();
+                for (c, v) in self.columns.iter().zip(r) {
+                    m.insert(c.clone(), v.clone());
+                }
+                Value::Object(m)
+            })
+            .collect();
+        obj.insert("rows".into(), Value::Array(rows));
+        Value::Object(obj)
+    }
+
+    fn to_json_string(&self) -> String {
+        let mut s = serde_json::to_string_pretty(&self.to_json()).unwrap_or_else(|_| "{}".into());
+        s.push('\n');
+        s
+    }
+
+    fn header_lines(&self) -> String {
+        let mut s = format!("# ngreach {} {}\n", crate::VERSION, self.command);
+        for n in &self.notes {
+            s.push_str(&format!("# {n}\n"));
+        }
+        s
+    }
+
+    fn to_csv(&self) -> String {
+        let mut s = self.header_lines();
+        for (k, v) in &self.summary {
+            s.push_str(&format!("# {k} = {}\n", cell_plain(v)));
+        }
+        s.push_str(&self.columns.join(","));
+        s.push('\n');
+        for r in &self.rows {
+            let cells: Vec<String> = r.iter().map(cell_csv).collect();
+            s.push_str(&cells.join(","));
+            s.push('\n');
+        }
+        s
+    }
+
+    fn to_table(&self) -> String {
+        let mut s = self.header_lines();
+        for (k, v) in &self.summary {
+            s.push_str(&format!("{k} = {}\n", cell_plain(v)));
+        }
+        if !self.summary.is_empty() {
+            s.push('\n');
+        }
+        let cells: Vec<Vec<String>> = self
+            .rows
+            .iter()
+            .map(|r| r.iter().map(cell_short).collect())
+            .collect();
+        let mut width: Vec<usize> = self.columns.iter().map(|c| c.len()).collect();
+        for r in &cells {
+            for (i, c) in r.iter().enumerate() {
+                if i < width.len() {
+                    width[i] = width[i].max(c.len());
+                }
+            }
+        }
+        let line = |items: &[String]| -> String {
+            items
+                .iter()
+                .enumerate()
+                .map(|(i, c)| format!("{:>w$}", c, w = width[i]))
+                .collect::<Vec<_>>()
+                .join("  ")
+        };
+        s.push_str(&line(&self.columns));
+        s.push('\n');
+        for r in &cells {
+            s.push_str(&line(r));
+            s.push('\n');
+        }
+        s
+    }
+}
+
+fn cell_plain(v: &Value) -> String {
+    match v {
+        Value::Number(n) => match n.as_f64() {
+            Some(x) if n.is_f64() => format_sig(x, 6),
+            _ => n.to_string(),
+        },
+        Value::String(t) => t.clone(),
+        Value::Null => "-".into(),
+        other => other.to_string(),
+    }
+}
+
+fn cell_short(v: &Value) -> String {
+    let s = cell_plain(v);
+    trim_zeros(&s)
+}
+
+/// Drops trailing zeros of a decimal mantissa: "1.50000" -> "1.5", "2.000e3" -> "2e3".
+fn trim_zeros(s: &str) -> String {
+    let (mant, exp) = match s.find('e') {
+        Some(i) => (&s[..i], &s[i..]),
+        None => (s, ""),
+    };
+    if !mant.contains('.') || mant.parse::<f64>().is_err() {
+        return s.to_string();
+    }
+    let m = mant.trim_end_matches('0').trim_end_matches('.');
+    format!("{m}{exp}")
+}
+
+fn cell_csv(v: &Value) -> String {
+    match v {
+        Value::Number(n) => n.to_string(),
+        Value::String(t) if t.contains(',') => format!("\"{t}\""),
+        Value::String(t) => t.clone(),
+        Value::Null => String::new(),
+        other => other.to_string(),
+    }
+}
+
+/// Formats with `sig` significant digits, switching to exponent form for very large or
+/// small magnitudes.
+pub fn format_sig(x: f64, sig: usize) -> String {
+    if !x.is_finite() {
+        return if x.is_nan() {
+            "nan".into()
+        } else if x > 0.0 {
+            "inf".into()
+        } else {
+            "-inf".into()
+        };
+    }
+    if x == 0.0 {
+        return "0".into();
+    }
+    let mag = x.abs().log10().floor() as i32;
+    if !(-3..6).contains(&mag) {
+        format!("{:.*e}", sig.saturating_sub(1), x)
+    } else {
+        let decimals = (sig as i32 - 1 - mag).max(0) as usize;
+        format!("{x:.decimals$}")
+    }
+}
+
+/// A JSON number that stays valid for non-finite values (null for NaN/inf).
+pub fn num(x: f64) -> Value {
+    serde_json::Number::from_f64(x).map_or(Value::Null, Value::Number)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn sig_formatting() {
+        assert_eq!(format_sig(1234.5678, 6), "1234.57");
+        assert_eq!(format_sig(0.000123456, 3), "1.23e-4");
+        assert_eq!(format_sig(f64::INFINITY, 3), "inf");
+        assert_eq!(trim_zeros("1.50000"), "1.5");
+        assert_eq!(trim_zeros("2.000e3"), "2e3");
+        assert_eq!(trim_zeros("100"), "100");
+    }
+
+    #[test]
+    fn json_has_contract_keys() {
+        let mut r = Report::new("x");
+        r.columns = vec!["a".into()];
+        r.rows = vec![vec![num(1.5)]];
+        r.summary.push(("s".into(), num(2.0)));
+        let j = r.to_json();
+        assert!(j["version"].is_string());
+        assert_eq!(j["rows"][0]["a"], 1.5);
+        assert_eq!(j["s"], 2.0);
+        assert!(j.get("inputs").is_some());
+    }
+
+    #[test]
+    fn csv_has_comment_then_header() {
+        let mut r = Report::new("x");
+        r.notes.push("lengths in Mpc".into());
+        r.columns = vec!["a".into(), "b".into()];
+        r.rows = vec![vec![num(1.0), Value::String("q".into())]];
+        let csv = r.render(Format::Csv);
+        let lines: Vec<&str> = csv.lines().collect();
+        assert!(lines[0].starts_with("# ngreach"));
+        assert_eq!(lines[2], "a,b");
+        assert_eq!(lines[3], "1.0,q");
+    }
+}
