@@ -217,7 +217,7 @@ impl FisherMatrix {
         // Scale to unit diagonal for conditioning.
         let d: Vec<f64> = (0..n).map(|i| self.get(i, i)).collect();
         for (i, &v) in d.iter().enumerate() {
-            if !(v > 0.0) || !v.is_finite() {
+            if v.is_nan() || v <= 0.0 || !v.is_finite() {
                 return Err(FisherError::Singular(self.names[i].clone()));
             }
         }

@@ -121,14 +121,15 @@ fn toml_error(source: &Source, e: &toml::de::Error) -> Error {
             };
         }
     }
-    let looks_like_syntax = message.contains("expected")
-        && !message.contains("invalid type")
-        && !message.contains("unknown variant");
-    if looks_like_syntax || message.contains("invalid") && message.contains("key") {
-        Error::Syntax { at, message }
-    } else {
+    // Value-level problems name the field; everything else is a syntax error.
+    let value_problem = ["invalid type", "invalid value", "unknown variant", "invalid length"]
+        .iter()
+        .any(|p| message.starts_with(p));
+    if value_problem {
         let field = key_at(source.text(), e.span().map_or(0, |s| s.start));
         Error::BadField { at, field, message }
+    } else {
+        Error::Syntax { at, message }
     }
 }
 

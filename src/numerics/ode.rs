@@ -8,6 +8,7 @@
 ///
 /// # Errors
 /// A message when the step size underflows (the system is stiff or singular).
+#[allow(clippy::too_many_arguments)] // the classic solver signature: f, span, y0, outputs, tolerances, sink
 pub fn dopri5<F, O>(
     mut f: F,
     t0: f64,
