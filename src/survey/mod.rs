@@ -1,0 +1,6 @@
+//! Survey physics: survey descriptions, tracers, bias and noise.
+
+pub mod bias;
+pub mod spec;
+
+pub use spec::{KmaxRule, RedshiftBin, Survey, SurveyFile, SurveyTable, Tracer, TracerBin};
