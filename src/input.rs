@@ -122,9 +122,14 @@ fn toml_error(source: &Source, e: &toml::de::Error) -> Error {
         }
     }
     // Value-level problems name the field; everything else is a syntax error.
-    let value_problem = ["invalid type", "invalid value", "unknown variant", "invalid length"]
-        .iter()
-        .any(|p| message.starts_with(p));
+    let value_problem = [
+        "invalid type",
+        "invalid value",
+        "unknown variant",
+        "invalid length",
+    ]
+    .iter()
+    .any(|p| message.starts_with(p));
     if value_problem {
         let field = key_at(source.text(), e.span().map_or(0, |s| s.start));
         Error::BadField { at, field, message }

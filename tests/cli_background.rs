@@ -23,7 +23,13 @@ fn background_json_contract() {
     assert!(s8 > 0.7 && s8 < 0.9, "{s8}");
     let rows = j["rows"].as_array().unwrap();
     assert_eq!(rows.len(), 4);
-    for key in ["z", "hubble_km_s_mpc", "comoving_distance_mpc", "growth", "growth_rate"] {
+    for key in [
+        "z",
+        "hubble_km_s_mpc",
+        "comoving_distance_mpc",
+        "growth",
+        "growth_rate",
+    ] {
         assert!(rows[1][key].is_number(), "row lacks {key}");
     }
     assert_eq!(rows[0]["growth"].as_f64().unwrap(), 1.0);
@@ -36,7 +42,10 @@ fn background_csv_and_table() {
     assert!(o.status.success());
     let s = stdout(&o);
     let header = s.lines().find(|l| !l.starts_with('#')).unwrap();
-    assert!(header.starts_with("z,hubble_km_s_mpc,comoving_distance_mpc"), "{header}");
+    assert!(
+        header.starts_with("z,hubble_km_s_mpc,comoving_distance_mpc"),
+        "{header}"
+    );
     assert!(s.lines().next().unwrap().starts_with("# ngreach"));
     let o = run(&["background", "--z", "0.5"]);
     assert!(stdout(&o).contains("Mpc"));
@@ -48,7 +57,15 @@ fn cosmology_file_changes_results() {
     std::fs::create_dir_all(&dir).unwrap();
     let f = dir.join("c.toml");
     std::fs::write(&f, "[cosmology]\nh = 0.7\nomega_c = 0.11\n").unwrap();
-    let j = run_json(&["background", "--format", "json", "--z", "0", "--cosmology", f.to_str().unwrap()]);
+    let j = run_json(&[
+        "background",
+        "--format",
+        "json",
+        "--z",
+        "0",
+        "--cosmology",
+        f.to_str().unwrap(),
+    ]);
     assert!((j["rows"][0]["hubble_km_s_mpc"].as_f64().unwrap() - 70.0).abs() < 1e-9);
     assert_eq!(j["inputs"]["cosmology"]["omega_c"].as_f64().unwrap(), 0.11);
     std::fs::remove_dir_all(&dir).ok();
@@ -72,7 +89,10 @@ fn example_cosmology_files_are_valid() {
 fn bad_cosmology_files_are_rejected_clearly() {
     let dir = root().join("tests/bad_inputs");
     let mut n = 0;
-    let mut entries: Vec<_> = std::fs::read_dir(&dir).unwrap().map(|e| e.unwrap().path()).collect();
+    let mut entries: Vec<_> = std::fs::read_dir(&dir)
+        .unwrap()
+        .map(|e| e.unwrap().path())
+        .collect();
     entries.sort();
     for p in entries {
         if p.extension().is_none_or(|e| e != "toml") {
@@ -86,14 +106,31 @@ fn bad_cosmology_files_are_rejected_clearly() {
         assert!(!expect.is_empty(), "{} has no expectation", p.display());
         let o = run(&["background", "--cosmology", p.to_str().unwrap()]);
         let err = stderr(&o);
-        assert_eq!(o.status.code(), Some(2), "{}: exit {:?}, stderr {err}", p.display(), o.status.code());
-        assert!(!err.contains("panicked") && !err.contains("RUST_BACKTRACE"), "{err}");
+        assert_eq!(
+            o.status.code(),
+            Some(2),
+            "{}: exit {:?}, stderr {err}",
+            p.display(),
+            o.status.code()
+        );
+        assert!(
+            !err.contains("panicked") && !err.contains("RUST_BACKTRACE"),
+            "{err}"
+        );
         assert!(err.starts_with("error: "), "{err}");
-        assert_eq!(err.trim_end().lines().count(), 1, "one line expected: {err}");
+        assert_eq!(
+            err.trim_end().lines().count(),
+            1,
+            "one line expected: {err}"
+        );
         let fname = p.file_name().unwrap().to_string_lossy().into_owned();
         assert!(err.contains(&fname), "message must name the file: {err}");
         for frag in expect {
-            assert!(err.contains(frag), "{}: expected `{frag}` in: {err}", p.display());
+            assert!(
+                err.contains(frag),
+                "{}: expected `{frag}` in: {err}",
+                p.display()
+            );
         }
         n += 1;
     }

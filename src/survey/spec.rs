@@ -244,9 +244,21 @@ impl Survey {
     ///
     /// # Errors
     /// Out-of-range values, attributed to their flags.
-    pub fn quick(volume_gpc3_h3: f64, z: f64, nbar_h3: f64, b1: f64, real_space: bool, h: f64) -> Result<Self> {
+    pub fn quick(
+        volume_gpc3_h3: f64,
+        z: f64,
+        nbar_h3: f64,
+        b1: f64,
+        real_space: bool,
+        h: f64,
+    ) -> Result<Self> {
         let flag = |f: &str| Location::Flag(f.to_string());
-        positive(volume_gpc3_h3, flag("--volume"), "volume", "volume > 0 (Gpc/h)^3")?;
+        positive(
+            volume_gpc3_h3,
+            flag("--volume"),
+            "volume",
+            "volume > 0 (Gpc/h)^3",
+        )?;
         if !(z.is_finite() && (0.0..=10.0).contains(&z)) {
             return Err(Error::out_of_range(flag("--z"), "z", z, "0 <= z <= 10"));
         }
@@ -337,7 +349,12 @@ impl SurveyTable {
             (Some(a), None) => {
                 let v = *a.get_ref();
                 if !(v > 0.0 && v <= FULL_SKY_DEG2 * (1.0 + 1e-9)) {
-                    return Err(Error::out_of_range(src.at(a), "area_deg2", v, "0 < area_deg2 <= 41253"));
+                    return Err(Error::out_of_range(
+                        src.at(a),
+                        "area_deg2",
+                        v,
+                        "0 < area_deg2 <= 41253",
+                    ));
                 }
                 v / FULL_SKY_DEG2
             }
@@ -370,7 +387,10 @@ impl SurveyTable {
                 return Err(Error::BadField {
                     at: at_edges,
                     field: "z_edges".into(),
-                    message: format!("edges must increase strictly within 0 <= z <= 10; found {} then {}", w[0], w[1]),
+                    message: format!(
+                        "edges must increase strictly within 0 <= z <= 10; found {} then {}",
+                        w[0], w[1]
+                    ),
                 });
             }
         }
@@ -397,7 +417,13 @@ impl SurveyTable {
         for (ti, t) in self.tracer.iter().enumerate() {
             tracers.push(resolve_tracer(t, ti, src, &bins, growth, h, f_sky)?);
         }
-        let opt = |v: &Option<Spanned<f64>>, d: f64, field: &str, lo: f64, hi: f64, allowed: &str| -> Result<f64> {
+        let opt = |v: &Option<Spanned<f64>>,
+                   d: f64,
+                   field: &str,
+                   lo: f64,
+                   hi: f64,
+                   allowed: &str|
+         -> Result<f64> {
             match v {
                 None => Ok(d),
                 Some(s) => {
@@ -410,16 +436,56 @@ impl SurveyTable {
                 }
             }
         };
-        let redshift_error = opt(&self.redshift_error, 0.0, "redshift_error", 0.0, 0.5, "0 <= redshift_error <= 0.5")?;
-        let sigma_v = opt(&self.velocity_dispersion_km_s, 0.0, "velocity_dispersion_km_s", 0.0, 3000.0, "0 to 3000 km/s")?;
+        let redshift_error = opt(
+            &self.redshift_error,
+            0.0,
+            "redshift_error",
+            0.0,
+            0.5,
+            "0 <= redshift_error <= 0.5",
+        )?;
+        let sigma_v = opt(
+            &self.velocity_dispersion_km_s,
+            0.0,
+            "velocity_dispersion_km_s",
+            0.0,
+            3000.0,
+            "0 to 3000 km/s",
+        )?;
         let kmin = match &self.kmin_h_mpc {
             None => None,
-            Some(s) => Some(opt(&Some(s.clone()), 0.0, "kmin_h_mpc", 1e-5, 1.0, "1e-5 <= kmin_h_mpc <= 1")? * h),
+            Some(s) => Some(
+                opt(
+                    &Some(s.clone()),
+                    0.0,
+                    "kmin_h_mpc",
+                    1e-5,
+                    1.0,
+                    "1e-5 <= kmin_h_mpc <= 1",
+                )? * h,
+            ),
         };
-        let kmax = opt(&self.kmax_h_mpc, 0.2, "kmax_h_mpc", 1e-3, 5.0, "1e-3 <= kmax_h_mpc <= 5")? * h;
-        let sigma_nl = opt(&self.sigma_nl, 0.5, "sigma_nl", 0.05, 2.0, "0.05 <= sigma_nl <= 2")?;
+        let kmax = opt(
+            &self.kmax_h_mpc,
+            0.2,
+            "kmax_h_mpc",
+            1e-3,
+            5.0,
+            "1e-3 <= kmax_h_mpc <= 5",
+        )? * h;
+        let sigma_nl = opt(
+            &self.sigma_nl,
+            0.5,
+            "sigma_nl",
+            0.05,
+            2.0,
+            "0.05 <= sigma_nl <= 2",
+        )?;
         Ok(Survey {
-            name: self.name.clone().unwrap_or_else(|| src.path().display().to_string()),
+            name: self
+                .name
+                .clone()
+                .unwrap_or_else(|| src.path().display().to_string()),
             f_sky,
             bins,
             tracers,
@@ -453,7 +519,10 @@ fn per_bin(v: &Spanned<PerBin>, n: usize, field: &str, src: &Source) -> Result<V
         PerBin::Many(xs) => Err(Error::BadField {
             at: src.at(v),
             field: field.into(),
-            message: format!("{} values given for {n} redshift bins; give one number or one per bin", xs.len()),
+            message: format!(
+                "{} values given for {n} redshift bins; give one number or one per bin",
+                xs.len()
+            ),
         }),
     }
 }
@@ -469,16 +538,24 @@ fn resolve_tracer(
     f_sky: f64,
 ) -> Result<Tracer> {
     let n = bins.len();
-    let name = t.name.clone().unwrap_or_else(|| format!("tracer {}", ti + 1));
+    let name = t
+        .name
+        .clone()
+        .unwrap_or_else(|| format!("tracer {}", ti + 1));
     let whole = || Location::WholeFile(src.path().to_path_buf());
     let nbar_mpc3: Vec<f64> = match (&t.nbar_h3_mpc3, &t.surface_density_deg2) {
         (Some(_), Some(s)) => {
             return Err(Error::Conflict {
                 at: src.at(s),
-                message: format!("tracer `{name}`: give `nbar_h3_mpc3` or `surface_density_deg2`, not both"),
+                message: format!(
+                    "tracer `{name}`: give `nbar_h3_mpc3` or `surface_density_deg2`, not both"
+                ),
             });
         }
-        (Some(v), None) => per_bin(v, n, "nbar_h3_mpc3", src)?.iter().map(|x| x * h.powi(3)).collect(),
+        (Some(v), None) => per_bin(v, n, "nbar_h3_mpc3", src)?
+            .iter()
+            .map(|x| x * h.powi(3))
+            .collect(),
         (None, Some(s)) => {
             let dens = per_bin(s, n, "surface_density_deg2", src)?;
             bins.iter()
@@ -494,10 +571,19 @@ fn resolve_tracer(
             });
         }
     };
-    let at_n = t.nbar_h3_mpc3.as_ref().or(t.surface_density_deg2.as_ref()).map_or_else(whole, |s| src.at(s));
+    let at_n = t
+        .nbar_h3_mpc3
+        .as_ref()
+        .or(t.surface_density_deg2.as_ref())
+        .map_or_else(whole, |s| src.at(s));
     for &x in &nbar_mpc3 {
         if !(x.is_finite() && x > 0.0) {
-            return Err(Error::out_of_range(at_n.clone(), "nbar_h3_mpc3", x / h.powi(3), "nbar > 0"));
+            return Err(Error::out_of_range(
+                at_n.clone(),
+                "nbar_h3_mpc3",
+                x / h.powi(3),
+                "nbar > 0",
+            ));
         }
     }
     let b1: Vec<f64> = match (&t.b1, &t.b0) {
@@ -508,7 +594,10 @@ fn resolve_tracer(
             });
         }
         (Some(v), None) => per_bin(v, n, "b1", src)?,
-        (None, Some(b0)) => bins.iter().map(|b| b0.get_ref() / growth.d_norm0(b.z_eff)).collect(),
+        (None, Some(b0)) => bins
+            .iter()
+            .map(|b| b0.get_ref() / growth.d_norm0(b.z_eff))
+            .collect(),
         (None, None) => {
             return Err(Error::BadField {
                 at: whole(),
@@ -517,7 +606,11 @@ fn resolve_tracer(
             });
         }
     };
-    let at_b = t.b1.as_ref().map(|s| src.at(s)).or(t.b0.as_ref().map(|s| src.at(s))).unwrap_or_else(whole);
+    let at_b =
+        t.b1.as_ref()
+            .map(|s| src.at(s))
+            .or(t.b0.as_ref().map(|s| src.at(s)))
+            .unwrap_or_else(whole);
     for &x in &b1 {
         if !(x.is_finite() && x > 0.0 && x < 20.0) {
             return Err(Error::out_of_range(at_b.clone(), "b1", x, "0 < b1 < 20"));

@@ -36,6 +36,10 @@ pub fn stderr(o: &Output) -> String {
 /// Runs and parses JSON stdout, asserting success.
 pub fn run_json(args: &[&str]) -> serde_json::Value {
     let o = run(args);
-    assert!(o.status.success(), "ngreach {args:?} failed: {}", stderr(&o));
+    assert!(
+        o.status.success(),
+        "ngreach {args:?} failed: {}",
+        stderr(&o)
+    );
     serde_json::from_slice(&o.stdout).expect("valid JSON on stdout")
 }
