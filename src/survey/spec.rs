@@ -413,6 +413,17 @@ impl SurveyTable {
                 message: "add at least one [[survey.tracer]] table".into(),
             });
         }
+        if self.tracer.len() > crate::survey::fisher::MAX_TRACERS {
+            return Err(Error::BadField {
+                at: at_edges,
+                field: "tracer".into(),
+                message: format!(
+                    "{} tracers given; at most {} share a volume",
+                    self.tracer.len(),
+                    crate::survey::fisher::MAX_TRACERS
+                ),
+            });
+        }
         let mut tracers = Vec::new();
         for (ti, t) in self.tracer.iter().enumerate() {
             tracers.push(resolve_tracer(t, ti, src, &bins, growth, h, f_sky)?);

@@ -1,0 +1,254 @@
+//! `ngreach survey`: the 3D survey Fisher forecast, from a survey file or the quick mode.
+
+use std::path::Path;
+
+use serde_json::{Value, json};
+
+use crate::cosmology::{Background, Cosmology, Growth, LinearPower, Primordial};
+use crate::error::{Error, Location, Result};
+use crate::input::{Source, parse_toml};
+use crate::report::{Report, num};
+use crate::shapes::Shape;
+use crate::survey::fisher::{Probe, ShapeInput, SurveyForecast, SurveySettings, survey_fisher};
+use crate::survey::{Survey, SurveyFile};
+
+/// Typed options of `ngreach survey`.
+#[derive(Debug, Clone)]
+pub struct SurveyOptions {
+    /// k_max grid in h/Mpc (None: the survey file's default).
+    pub kmax_h_mpc: Option<Vec<f64>>,
+    /// Probes to report.
+    pub probes: Vec<Probe>,
+    /// Shapes (f_NL parameters).
+    pub shapes: Vec<Shape>,
+    /// Engine settings.
+    pub settings: SurveySettings,
+}
+
+/// Quick-mode inputs.
+#[derive(Debug, Clone, Copy)]
+pub struct QuickInputs {
+    /// Volume in (Gpc/h)^3.
+    pub volume_gpc3_h3: f64,
+    /// Redshift.
+    pub z: f64,
+    /// nbar in h^3 Mpc^-3.
+    pub nbar_h3_mpc3: f64,
+    /// Linear bias.
+    pub b1: f64,
+    /// No redshift-space distortions.
+    pub real_space: bool,
+}
+
+/// Parses `--probes`.
+///
+/// # Errors
+/// An unknown probe name.
+pub fn parse_probes(list: &[String]) -> Result<Vec<Probe>> {
+    list.iter()
+        .map(|s| {
+            Probe::parse(s).ok_or_else(|| Error::BadField {
+                at: Location::Flag("--probes".into()),
+                field: "probes".into(),
+                message: format!("unknown probe `{s}`; use P, B or P+B"),
+            })
+        })
+        .collect()
+}
+
+/// Parses `--shapes`.
+///
+/// # Errors
+/// A shape that does not parse.
+pub fn parse_shapes(list: &[String], flag: &str) -> Result<Vec<Shape>> {
+    let mut out: Vec<Shape> = Vec::new();
+    for s in list {
+        let sh = Shape::parse(s, Location::Flag(flag.into()))?;
+        if out.iter().any(|o| o.name() == sh.name()) {
+            return Err(Error::BadField {
+                at: Location::Flag(flag.into()),
+                field: "shapes".into(),
+                message: format!("shape `{}` is listed twice", sh.name()),
+            });
+        }
+        out.push(sh);
+    }
+    Ok(out)
+}
+
+/// Loads a survey file (with its optional [cosmology] table, unless one is given).
+///
+/// # Errors
+/// Input errors of the file.
+pub fn load_survey(path: &Path, cosmo_override: Option<(&Cosmology, &str)>) -> Result<(Survey, Cosmology, String)> {
+    let src = Source::read(path)?;
+    let file: SurveyFile = parse_toml(&src)?;
+    let (c, cs) = match (cosmo_override, &file.cosmology) {
+        (Some((c, s)), _) => (c.clone(), s.to_string()),
+        (None, Some(t)) => (t.resolve(&src)?, format!("{} [cosmology]", path.display())),
+        (None, None) => (Cosmology::planck2018(), "built-in Planck 2018 base LCDM".into()),
+    };
+    let bg = Background::new(&c);
+    let growth = Growth::new(&c);
+    let s = file.survey.resolve(&src, &bg, &growth)?;
+    Ok((s, c, cs))
+}
+
+/// Runs the forecast and builds the report.
+///
+/// # Errors
+/// Invalid k_max values.
+pub fn survey_report(survey: &Survey, c: &Cosmology, cosmo_source: &str, opts: &SurveyOptions) -> Result<(Report, SurveyForecast)> {
+    let h = c.h();
+    let kmax_h: Vec<f64> = match &opts.kmax_h_mpc {
+        Some(v) => v.clone(),
+        None => vec![survey.kmax_default_mpc / h],
+    };
+    let mut sorted = kmax_h.clone();
+    sorted.sort_by(f64::total_cmp);
+    for &k in &sorted {
+        if !(k.is_finite() && (1e-3..=5.0).contains(&k)) {
+            return Err(Error::out_of_range(Location::Flag("--kmax".into()), "kmax", k, "1e-3 <= kmax <= 5 h/Mpc"));
+        }
+    }
+    let bg = Background::new(c);
+    let power = LinearPower::eisenstein_hu(c);
+    let prim = Primordial::new(c);
+    let bis: Vec<Box<dyn Fn(f64, f64, f64) -> f64 + Sync>> = opts
+        .shapes
+        .iter()
+        .map(|s| {
+            let s = s.clone();
+            Box::new(move |k1: f64, k2: f64, k3: f64| s.bispectrum_phi(&prim, k1, k2, k3)) as Box<dyn Fn(f64, f64, f64) -> f64 + Sync>
+        })
+        .collect();
+    let inputs: Vec<ShapeInput<'_>> = opts
+        .shapes
+        .iter()
+        .zip(&bis)
+        .map(|(s, b)| {
+            let sq = s.squeezed_limit();
+            ShapeInput {
+                name: s.name(),
+                squeezed_amplitude: sq.amplitude,
+                squeezed_index: sq.k_index(prim.n_s()),
+                bispectrum: b.as_ref(),
+            }
+        })
+        .collect();
+    let kmax_mpc: Vec<f64> = sorted.iter().map(|k| k * h).collect();
+    let fc = survey_fisher(survey, &power, &bg, &inputs, &kmax_mpc, &opts.settings);
+    let mut r = Report::new("survey");
+    r.notes = vec![
+        "k in h/Mpc; sigma(f_NL) in the CMB convention (growth normalized to a in matter domination)".into(),
+        "sigma_conditional: other shapes fixed; sigma_marginal: marginalized over the other shapes listed; both after marginalizing the per-bin nuisances".into(),
+        "P: continuous Fisher integral from k_min; B: tree level, triangle bins of width dk = k_f, full orientation dependence; P+B: shared nuisances, P-B cross-covariance neglected (Gaussian level)".into(),
+        "linear power: Eisenstein-Hu (1998) normalized from A_s".into(),
+    ];
+    r.inputs = json!({
+        "cosmology": super::cosmology_json(c, cosmo_source),
+        "survey": survey_json(survey, h),
+        "kmax_h_mpc": sorted,
+        "probes": opts.probes.iter().map(|p| p.label()).collect::<Vec<_>>(),
+        "shapes": opts.shapes.iter().map(|s| s.name()).collect::<Vec<_>>(),
+        "settings": opts.settings,
+    });
+    r.columns = ["kmax_h_mpc", "probe", "shape", "sigma_conditional", "sigma_marginal"].iter().map(|s| s.to_string()).collect();
+    for (ik, &k) in sorted.iter().enumerate() {
+        for &probe in &opts.probes {
+            let f = &fc.total[ik][probe_index(probe)];
+            let marg = f.sigma_marginal_or_inf();
+            for (is, s) in opts.shapes.iter().enumerate() {
+                r.rows.push(vec![num(k), Value::String(probe.label().into()), Value::String(s.name()), num(f.sigma_conditional(is)), num(marg[is])]);
+            }
+        }
+    }
+    r.json_extra.push(("per_bin".into(), per_bin_json(&fc, &opts.probes, &sorted, h)));
+    r.json_extra.push(("fisher".into(), fisher_json(&fc.total, &opts.probes, &sorted)));
+    r.json_extra.push(("cross_covariance".into(), "P-B cross-covariance neglected (Gaussian level)".into()));
+    Ok((r, fc))
+}
+
+/// Index of a probe in the engine's [P, B, P+B] arrays.
+pub fn probe_index(p: Probe) -> usize {
+    match p {
+        Probe::P => 0,
+        Probe::B => 1,
+        Probe::PB => 2,
+    }
+}
+
+fn survey_json(s: &Survey, h: f64) -> Value {
+    json!({
+        "name": s.name,
+        "f_sky": s.f_sky,
+        "redshift_error": s.redshift_error,
+        "velocity_dispersion_km_s": s.velocity_dispersion_km_s,
+        "kmax_rule": s.kmax_rule,
+        "sigma_nl": s.sigma_nl,
+        "real_space": s.real_space,
+        "nuisance": s.nuisance,
+        "priors": s.priors,
+        "bins": s.bins.iter().map(|b| json!({
+            "z_min": b.z_min, "z_max": b.z_max, "z_eff": b.z_eff,
+            "volume_gpc3_h3": b.volume_mpc3 * h.powi(3) / 1e9,
+        })).collect::<Vec<_>>(),
+        "tracers": s.tracers.iter().map(|t| json!({
+            "name": t.name,
+            "p": t.p,
+            "bins": t.bins.iter().map(|b| json!({
+                "nbar_h3_mpc3": b.nbar_mpc3 / h.powi(3), "b1": b.b1, "b2": b.b2, "bs2": b.bs2, "b_phi": b.b_phi,
+            })).collect::<Vec<_>>(),
+        })).collect::<Vec<_>>(),
+    })
+}
+
+fn per_bin_json(fc: &SurveyForecast, probes: &[Probe], kmax_h: &[f64], h: f64) -> Value {
+    Value::Array(
+        fc.bins
+            .iter()
+            .map(|b| {
+                let rows: Vec<Value> = kmax_h
+                    .iter()
+                    .enumerate()
+                    .flat_map(|(ik, &k)| {
+                        probes.iter().flat_map(move |&p| {
+                            let f = &b.fisher[ik][probe_index(p)];
+                            let marg = f.sigma_marginal_or_inf();
+                            fc.shapes.iter().enumerate().map(move |(is, s)| {
+                                json!({
+                                    "kmax_h_mpc": k,
+                                    "kmax_used_h_mpc": b.kmax_used_mpc[ik] / h,
+                                    "probe": p.label(),
+                                    "shape": s,
+                                    "sigma_conditional": num(f.sigma_conditional(is)),
+                                    "sigma_marginal": num(marg[is]),
+                                })
+                            })
+                        })
+                    })
+                    .collect();
+                json!({
+                    "z_min": b.bin.z_min, "z_max": b.bin.z_max, "z_eff": b.bin.z_eff,
+                    "kmin_h_mpc": b.kmin_mpc / h, "kf_h_mpc": b.kf_mpc / h,
+                    "rows": rows,
+                })
+            })
+            .collect(),
+    )
+}
+
+fn fisher_json(total: &[[crate::fisher::FisherMatrix; 3]], probes: &[Probe], kmax_h: &[f64]) -> Value {
+    Value::Array(
+        kmax_h
+            .iter()
+            .enumerate()
+            .flat_map(|(ik, &k)| {
+                probes.iter().map(move |&p| {
+                    let f = &total[ik][probe_index(p)];
+                    json!({"kmax_h_mpc": k, "probe": p.label(), "parameters": f.names(), "matrix": f.rows()})
+                })
+            })
+            .collect(),
+    )
+}
