@@ -41,8 +41,8 @@
 //! modes decay as (k tau)^(3/2 -+ nu), nu = sqrt(9/4 - m^2/H^2). The squeezed bispectrum
 //! then behaves as B(k_L, k_S, k_S) / [P(k_L) P(k_S)] ~ (k_L/k_S)^Delta with
 //! Delta = 3/2 - nu (its use for large-scale structure and the CMB: Sefusatti, Fergusson,
-//! Chen & Shellard 2012, arXiv:1204.6318). `B_Delta` is a *separable template* built to reproduce that power
-//! law, not the exact quasi-single-field bispectrum (which is not separable). By
+//! Chen & Shellard 2012, arXiv:1204.6318). `B_Delta` is a *separable template* built to
+//! reproduce that power law, not the exact quasi-single-field bispectrum (which is not separable). By
 //! construction it is symmetric, it equals B_loc at Delta = 0 (then the six-term sum is
 //! twice the three-pair sum), it has the equilateral normalization above, and in the
 //! isosceles squeezed limit (k1 = k_L, k2 = k3 = k_S, x = k_L/k_S, n_s = 1)
@@ -88,10 +88,10 @@
 //! negative amplitude (derived here from the template; measured in the tests). This is a
 //! property of the template, not of the single-field shapes it approximates, which vanish
 //! faster; Senatore, Smith & Zaldarriaga 2010 give an alternative template with a
-//! different squeezed limit for that reason (from memory). The equilateral amplitude depends on the angle off the isosceles
-//! line: with k_{2,3} = |k_S -+ k_L/2| and mu the cosine between k_L and k_S,
-//! a(mu) = 3 (1 - mu^2), whose angular mean is 2; the local, orthogonal and family leading
-//! terms do not depend on mu.
+//! different squeezed limit for that reason (from memory). The equilateral amplitude
+//! depends on the angle off the isosceles line: with k_{2,3} = |k_S -+ k_L/2| and mu the
+//! cosine between k_L and k_S, a(mu) = 3 (1 - mu^2), whose angular mean is 2; the local,
+//! orthogonal and family leading terms do not depend on mu.
 //!
 //! The survey engine builds the scale-dependent bias from (a, Delta) in the
 //! peak-background-split form of Schmidt & Kamionkowski 2010 (Phys. Rev. D 82, 103002,
