@@ -42,8 +42,8 @@
 //! then behaves as B(k_L, k_S, k_S) / [P(k_L) P(k_S)] ~ (k_L/k_S)^Delta with
 //! Delta = 3/2 - nu (its use for large-scale structure and the CMB: Sefusatti, Fergusson,
 //! Chen & Shellard 2012, arXiv:1204.6318). `B_Delta` is a *separable template* built to
-//! reproduce that power law, not the exact quasi-single-field bispectrum (which is not separable). By
-//! construction it is symmetric, it equals B_loc at Delta = 0 (then the six-term sum is
+//! reproduce that power law, not the exact quasi-single-field bispectrum (which is not
+//! separable). By construction it is symmetric, it equals B_loc at Delta = 0 (then the six-term sum is
 //! twice the three-pair sum), it has the equilateral normalization above, and in the
 //! isosceles squeezed limit (k1 = k_L, k2 = k3 = k_S, x = k_L/k_S, n_s = 1)
 //!
