@@ -43,9 +43,9 @@
 //! Delta = 3/2 - nu (its use for large-scale structure and the CMB: Sefusatti, Fergusson,
 //! Chen & Shellard 2012, arXiv:1204.6318). `B_Delta` is a *separable template* built to
 //! reproduce that power law, not the exact quasi-single-field bispectrum (which is not
-//! separable). By construction it is symmetric, it equals B_loc at Delta = 0 (then the six-term sum is
-//! twice the three-pair sum), it has the equilateral normalization above, and in the
-//! isosceles squeezed limit (k1 = k_L, k2 = k3 = k_S, x = k_L/k_S, n_s = 1)
+//! separable). By construction it is symmetric, it equals B_loc at Delta = 0 (then the
+//! six-term sum is twice the three-pair sum), it has the equilateral normalization above,
+//! and in the isosceles squeezed limit (k1 = k_L, k2 = k3 = k_S, x = k_L/k_S, n_s = 1)
 //!
 //!   B_Delta / (P_L P_S) = 4 x^Delta + 4 x^(3 - Delta) - 2 x^3      (exact for all x),
 //!
