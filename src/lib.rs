@@ -28,6 +28,7 @@ pub mod fisher;
 pub mod input;
 pub mod numerics;
 pub mod report;
+pub mod shapes;
 pub mod survey;
 
 pub use error::{Error, Location, Result};
