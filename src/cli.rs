@@ -79,28 +79,58 @@ pub struct SurveyArgs {
     #[arg(value_name = "FILE")]
     pub file: Option<PathBuf>,
     /// Quick mode: volume in (Gpc/h)^3 of a single bin.
-    #[arg(long, value_name = "GPC3", requires_all = ["z", "nbar", "b1"], conflicts_with = "file")]
+    #[arg(long, value_name = "GPC3", requires_all = ["z", "nbar", "b1"], conflicts_with = "file", allow_hyphen_values = true)]
     pub volume: Option<f64>,
     /// Quick mode: redshift of the bin.
-    #[arg(long, value_name = "Z", requires = "volume")]
+    #[arg(
+        long,
+        value_name = "Z",
+        requires = "volume",
+        allow_hyphen_values = true
+    )]
     pub z: Option<f64>,
     /// Quick mode: number density in h^3 Mpc^-3.
-    #[arg(long, value_name = "N", requires = "volume")]
+    #[arg(
+        long,
+        value_name = "N",
+        requires = "volume",
+        allow_hyphen_values = true
+    )]
     pub nbar: Option<f64>,
     /// Quick mode: linear bias.
-    #[arg(long, value_name = "B", requires = "volume")]
+    #[arg(
+        long,
+        value_name = "B",
+        requires = "volume",
+        allow_hyphen_values = true
+    )]
     pub b1: Option<f64>,
     /// Quick mode: no redshift-space distortions.
     #[arg(long, requires = "volume")]
     pub real_space: bool,
     /// k_max values in h/Mpc, comma separated (default: the file's kmax_h_mpc, or 0.2).
-    #[arg(long, value_name = "LIST", value_delimiter = ',', allow_hyphen_values = true)]
+    #[arg(
+        long,
+        value_name = "LIST",
+        value_delimiter = ',',
+        allow_hyphen_values = true
+    )]
     pub kmax: Option<Vec<f64>>,
     /// Probes: P, B, P+B.
-    #[arg(long, value_name = "LIST", value_delimiter = ',', default_value = "P,B,P+B")]
+    #[arg(
+        long,
+        value_name = "LIST",
+        value_delimiter = ',',
+        default_value = "P,B,P+B"
+    )]
     pub probes: Vec<String>,
     /// Shapes: local, equilateral, orthogonal, delta=D, mass=M (m/H).
-    #[arg(long, value_name = "LIST", value_delimiter = ',', default_value = "local,equilateral,orthogonal")]
+    #[arg(
+        long,
+        value_name = "LIST",
+        value_delimiter = ',',
+        default_value = "local,equilateral,orthogonal"
+    )]
     pub shapes: Vec<String>,
     /// Worker threads (1 runs the serial path).
     #[arg(long, value_name = "N")]

@@ -339,6 +339,19 @@ mod tests {
     }
 
     #[test]
+    fn uninformative_parameter_does_not_spoil_the_others() {
+        let f = FisherMatrix::from_rows(
+            vec!["a".into(), "b".into(), "c".into()],
+            vec![4.0, 1.0, 0.0, 1.0, 3.0, 0.0, 0.0, 0.0, 0.0],
+        );
+        let m = f.sigma_marginal_or_inf();
+        let sub = f.select(&["a", "b"]).unwrap().sigma_marginal().unwrap();
+        assert_eq!(m[0], sub[0]);
+        assert_eq!(m[1], sub[1]);
+        assert!(m[2].is_infinite());
+    }
+
+    #[test]
     fn combine_adds_shared_parameters() {
         let a = FisherMatrix::from_rows(vec!["x".into(), "y".into()], vec![1.0, 0.0, 0.0, 2.0]);
         let b = FisherMatrix::from_rows(vec!["y".into(), "z".into()], vec![3.0, 0.0, 0.0, 4.0]);

@@ -18,17 +18,33 @@ fn run(cli: Cli) -> ngreach::Result<String> {
         Command::Survey(a) => {
             if let Some(n) = a.threads {
                 // A second call (tests) keeps the first pool; that is harmless.
-                let _ = rayon::ThreadPoolBuilder::new().num_threads(n.max(1)).build_global();
+                let _ = rayon::ThreadPoolBuilder::new()
+                    .num_threads(n.max(1))
+                    .build_global();
             }
             let cosmo = match a.common.cosmology.as_deref() {
                 Some(p) => Some(commands::resolve_cosmology(Some(p))?),
                 None => None,
             };
             let (survey, c, src) = match (&a.file, a.volume) {
-                (Some(f), _) => commands::survey::load_survey(f, cosmo.as_ref().map(|(c, s)| (c, s.as_str())))?,
+                (Some(f), _) => {
+                    commands::survey::load_survey(f, cosmo.as_ref().map(|(c, s)| (c, s.as_str())))?
+                }
                 (None, Some(v)) => {
-                    let (c, s) = cosmo.unwrap_or_else(|| (ngreach::cosmology::Cosmology::planck2018(), "built-in Planck 2018 base LCDM".into()));
-                    let sv = ngreach::survey::Survey::quick(v, a.z.unwrap_or(0.0), a.nbar.unwrap_or(0.0), a.b1.unwrap_or(0.0), a.real_space, c.h())?;
+                    let (c, s) = cosmo.unwrap_or_else(|| {
+                        (
+                            ngreach::cosmology::Cosmology::planck2018(),
+                            "built-in Planck 2018 base LCDM".into(),
+                        )
+                    });
+                    let sv = ngreach::survey::Survey::quick(
+                        v,
+                        a.z.unwrap_or(0.0),
+                        a.nbar.unwrap_or(0.0),
+                        a.b1.unwrap_or(0.0),
+                        a.real_space,
+                        c.h(),
+                    )?;
                     (sv, c, s)
                 }
                 (None, None) => {

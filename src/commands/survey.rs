@@ -80,13 +80,19 @@ pub fn parse_shapes(list: &[String], flag: &str) -> Result<Vec<Shape>> {
 ///
 /// # Errors
 /// Input errors of the file.
-pub fn load_survey(path: &Path, cosmo_override: Option<(&Cosmology, &str)>) -> Result<(Survey, Cosmology, String)> {
+pub fn load_survey(
+    path: &Path,
+    cosmo_override: Option<(&Cosmology, &str)>,
+) -> Result<(Survey, Cosmology, String)> {
     let src = Source::read(path)?;
     let file: SurveyFile = parse_toml(&src)?;
     let (c, cs) = match (cosmo_override, &file.cosmology) {
         (Some((c, s)), _) => (c.clone(), s.to_string()),
         (None, Some(t)) => (t.resolve(&src)?, format!("{} [cosmology]", path.display())),
-        (None, None) => (Cosmology::planck2018(), "built-in Planck 2018 base LCDM".into()),
+        (None, None) => (
+            Cosmology::planck2018(),
+            "built-in Planck 2018 base LCDM".into(),
+        ),
     };
     let bg = Background::new(&c);
     let growth = Growth::new(&c);
@@ -98,7 +104,12 @@ pub fn load_survey(path: &Path, cosmo_override: Option<(&Cosmology, &str)>) -> R
 ///
 /// # Errors
 /// Invalid k_max values.
-pub fn survey_report(survey: &Survey, c: &Cosmology, cosmo_source: &str, opts: &SurveyOptions) -> Result<(Report, SurveyForecast)> {
+pub fn survey_report(
+    survey: &Survey,
+    c: &Cosmology,
+    cosmo_source: &str,
+    opts: &SurveyOptions,
+) -> Result<(Report, SurveyForecast)> {
     let h = c.h();
     let kmax_h: Vec<f64> = match &opts.kmax_h_mpc {
         Some(v) => v.clone(),
@@ -108,33 +119,21 @@ pub fn survey_report(survey: &Survey, c: &Cosmology, cosmo_source: &str, opts: &
     sorted.sort_by(f64::total_cmp);
     for &k in &sorted {
         if !(k.is_finite() && (1e-3..=5.0).contains(&k)) {
-            return Err(Error::out_of_range(Location::Flag("--kmax".into()), "kmax", k, "1e-3 <= kmax <= 5 h/Mpc"));
+            return Err(Error::out_of_range(
+                Location::Flag("--kmax".into()),
+                "kmax",
+                k,
+                "1e-3 <= kmax <= 5 h/Mpc",
+            ));
         }
     }
     let bg = Background::new(c);
     let power = LinearPower::eisenstein_hu(c);
     let prim = Primordial::new(c);
-    let bis: Vec<Box<dyn Fn(f64, f64, f64) -> f64 + Sync>> = opts
+    let inputs: Vec<ShapeInput> = opts
         .shapes
         .iter()
-        .map(|s| {
-            let s = s.clone();
-            Box::new(move |k1: f64, k2: f64, k3: f64| s.bispectrum_phi(&prim, k1, k2, k3)) as Box<dyn Fn(f64, f64, f64) -> f64 + Sync>
-        })
-        .collect();
-    let inputs: Vec<ShapeInput<'_>> = opts
-        .shapes
-        .iter()
-        .zip(&bis)
-        .map(|(s, b)| {
-            let sq = s.squeezed_limit();
-            ShapeInput {
-                name: s.name(),
-                squeezed_amplitude: sq.amplitude,
-                squeezed_index: sq.k_index(prim.n_s()),
-                bispectrum: b.as_ref(),
-            }
-        })
+        .map(|&s| ShapeInput::new(s, prim))
         .collect();
     let kmax_mpc: Vec<f64> = sorted.iter().map(|k| k * h).collect();
     let fc = survey_fisher(survey, &power, &bg, &inputs, &kmax_mpc, &opts.settings);
@@ -153,19 +152,43 @@ pub fn survey_report(survey: &Survey, c: &Cosmology, cosmo_source: &str, opts: &
         "shapes": opts.shapes.iter().map(|s| s.name()).collect::<Vec<_>>(),
         "settings": opts.settings,
     });
-    r.columns = ["kmax_h_mpc", "probe", "shape", "sigma_conditional", "sigma_marginal"].iter().map(|s| s.to_string()).collect();
+    r.columns = [
+        "kmax_h_mpc",
+        "probe",
+        "shape",
+        "sigma_conditional",
+        "sigma_marginal",
+    ]
+    .iter()
+    .map(|s| s.to_string())
+    .collect();
     for (ik, &k) in sorted.iter().enumerate() {
         for &probe in &opts.probes {
             let f = &fc.total[ik][probe_index(probe)];
             let marg = f.sigma_marginal_or_inf();
             for (is, s) in opts.shapes.iter().enumerate() {
-                r.rows.push(vec![num(k), Value::String(probe.label().into()), Value::String(s.name()), num(f.sigma_conditional(is)), num(marg[is])]);
+                r.rows.push(vec![
+                    num(k),
+                    Value::String(probe.label().into()),
+                    Value::String(s.name()),
+                    num(f.sigma_conditional(is)),
+                    num(marg[is]),
+                ]);
             }
         }
     }
-    r.json_extra.push(("per_bin".into(), per_bin_json(&fc, &opts.probes, &sorted, h)));
-    r.json_extra.push(("fisher".into(), fisher_json(&fc.total, &opts.probes, &sorted)));
-    r.json_extra.push(("cross_covariance".into(), "P-B cross-covariance neglected (Gaussian level)".into()));
+    r.json_extra.push((
+        "per_bin".into(),
+        per_bin_json(&fc, &opts.probes, &sorted, h),
+    ));
+    r.json_extra.push((
+        "fisher".into(),
+        fisher_json(&fc.total, &opts.probes, &sorted),
+    ));
+    r.json_extra.push((
+        "cross_covariance".into(),
+        "P-B cross-covariance neglected (Gaussian level)".into(),
+    ));
     Ok((r, fc))
 }
 
@@ -238,7 +261,11 @@ fn per_bin_json(fc: &SurveyForecast, probes: &[Probe], kmax_h: &[f64], h: f64) -
     )
 }
 
-fn fisher_json(total: &[[crate::fisher::FisherMatrix; 3]], probes: &[Probe], kmax_h: &[f64]) -> Value {
+fn fisher_json(
+    total: &[[crate::fisher::FisherMatrix; 3]],
+    probes: &[Probe],
+    kmax_h: &[f64],
+) -> Value {
     Value::Array(
         kmax_h
             .iter()

@@ -167,7 +167,7 @@ fn cell_plain(v: &Value) -> String {
             _ => n.to_string(),
         },
         Value::String(t) => t.clone(),
-        Value::Null => "-".into(),
+        Value::Null => "inf".into(),
         other => other.to_string(),
     }
 }
@@ -195,7 +195,7 @@ fn cell_csv(v: &Value) -> String {
         Value::Number(n) => n.to_string(),
         Value::String(t) if t.contains(',') => format!("\"{t}\""),
         Value::String(t) => t.clone(),
-        Value::Null => String::new(),
+        Value::Null => "inf".into(),
         other => other.to_string(),
     }
 }

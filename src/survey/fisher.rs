@@ -33,24 +33,49 @@
 
 use rayon::prelude::*;
 
-use crate::cosmology::LinearPower;
+use crate::cosmology::{LinearPower, Primordial};
 use crate::fisher::FisherMatrix;
 use crate::numerics::GaussLegendre;
+use crate::shapes::Shape;
 use crate::survey::spec::{RedshiftBin, Survey};
 
 /// Most tracers per survey (the covariance algebra works on fixed-size arrays).
 pub const MAX_TRACERS: usize = 4;
 
-/// The part of a primordial shape that the survey engine needs.
-pub struct ShapeInput<'a> {
+/// A primordial shape as the survey engine sees it: its bispectrum and the squeezed
+/// limit that sets its scale-dependent bias.
+#[derive(Debug, Clone)]
+pub struct ShapeInput {
     /// Name for output.
     pub name: String,
     /// Squeezed amplitude a_S (local: 1); 0 when the shape has no leading squeezed term.
     pub squeezed_amplitude: f64,
-    /// Squeezed index Delta (local: 0).
+    /// Power of k in the squeezed limit (local: 0), for the tilt in use.
     pub squeezed_index: f64,
+    /// The shape (for B_Phi).
+    pub shape: Shape,
+    /// The primordial spectrum (for B_Phi).
+    pub primordial: Primordial,
+}
+
+impl ShapeInput {
+    /// From a shape: squeezed amplitude and index from [`Shape::squeezed_limit`], the
+    /// index converted to a power of k for the primordial tilt.
+    pub fn new(shape: Shape, primordial: Primordial) -> Self {
+        let sq = shape.squeezed_limit();
+        Self {
+            name: shape.name(),
+            squeezed_amplitude: sq.amplitude,
+            squeezed_index: sq.k_index(primordial.n_s()),
+            shape,
+            primordial,
+        }
+    }
+
     /// B_Phi(k1, k2, k3) for f_NL = 1, Mpc^6, k in 1/Mpc.
-    pub bispectrum: &'a (dyn Fn(f64, f64, f64) -> f64 + Sync),
+    pub fn bispectrum(&self, k1: f64, k2: f64, k3: f64) -> f64 {
+        self.shape.bispectrum_phi(&self.primordial, k1, k2, k3)
+    }
 }
 
 /// Which probes to compute.
@@ -199,7 +224,7 @@ pub fn survey_fisher(
     survey: &Survey,
     power: &LinearPower,
     bg: &crate::cosmology::Background,
-    shapes: &[ShapeInput<'_>],
+    shapes: &[ShapeInput],
     kmax_grid_mpc: &[f64],
     settings: &SurveySettings,
 ) -> SurveyForecast {
@@ -231,8 +256,8 @@ pub fn survey_fisher(
         .map(|ik| {
             let mut acc = [zero.clone(), zero.clone(), zero.clone()];
             for b in &bins {
-                for p in 0..3 {
-                    acc[p] = acc[p].combine(&b.fisher[ik][p]);
+                for (a, f) in acc.iter_mut().zip(&b.fisher[ik]) {
+                    *a = a.combine(f);
                 }
             }
             acc
@@ -252,7 +277,7 @@ fn bin_fisher(
     ib: usize,
     power: &LinearPower,
     bg: &crate::cosmology::Background,
-    shapes: &[ShapeInput<'_>],
+    shapes: &[ShapeInput],
     shape_names: &[String],
     kmax_grid: &[f64],
     st: &SurveySettings,
@@ -297,7 +322,7 @@ fn bin_fisher(
     let kp = power.primordial().k_pivot();
     // alpha_s(k) = a_S (k/k_p)^Delta / M(k, z): zero for shapes without a squeezed term
     // at the order that matters (Delta >= 2, e.g. equilateral).
-    let alpha = |s: &ShapeInput<'_>, k: f64| -> f64 {
+    let alpha = |s: &ShapeInput, k: f64| -> f64 {
         if s.squeezed_amplitude == 0.0 || s.squeezed_index >= 2.0 - 1e-9 {
             0.0
         } else {
@@ -431,9 +456,9 @@ struct BinCtx<'a> {
     kmin: f64,
     tracers: &'a [TracerFid],
     lay: &'a Layout,
-    shapes: &'a [ShapeInput<'a>],
+    shapes: &'a [ShapeInput],
     power: &'a LinearPower,
-    alpha: &'a (dyn Fn(&ShapeInput<'_>, f64) -> f64 + Sync),
+    alpha: &'a (dyn Fn(&ShapeInput, f64) -> f64 + Sync),
     st: &'a SurveySettings,
 }
 
@@ -591,7 +616,7 @@ impl BinCtx<'_> {
                     let bphi_prim: Vec<f64> = self
                         .shapes
                         .iter()
-                        .map(|s| (s.bispectrum)(k1, k2, k3))
+                        .map(|s| s.bispectrum(k1, k2, k3))
                         .collect();
                     let al: Vec<[f64; 3]> = self
                         .shapes
@@ -831,7 +856,7 @@ fn trace_prod(
 /// Scale-dependent bias Delta b(k, z) for f_NL = 1 of a shape and a tracer's b_phi
 /// (k in 1/Mpc): b_phi a_S (k / k_p)^Delta / M(k, z), zero for shapes without a leading
 /// squeezed term.
-pub fn delta_b(shape: &ShapeInput<'_>, b_phi: f64, k: f64, z: f64, power: &LinearPower) -> f64 {
+pub fn delta_b(shape: &ShapeInput, b_phi: f64, k: f64, z: f64, power: &LinearPower) -> f64 {
     if shape.squeezed_amplitude == 0.0 || shape.squeezed_index >= 2.0 - 1e-9 {
         return 0.0;
     }
@@ -862,6 +887,10 @@ mod tests {
         }
     }
 
+    fn local(prim: Primordial) -> ShapeInput {
+        ShapeInput::new(Shape::Local, prim)
+    }
+
     fn local_b(prim: Primordial) -> impl Fn(f64, f64, f64) -> f64 + Sync {
         move |k1, k2, k3| {
             let (p1, p2, p3) = (prim.p_phi(k1), prim.p_phi(k2), prim.p_phi(k3));
@@ -876,13 +905,7 @@ mod tests {
     #[test]
     fn local_scale_dependent_bias_goes_as_k_minus_two() {
         let s = setup();
-        let b = local_b(s.prim);
-        let shape = ShapeInput {
-            name: "local".into(),
-            squeezed_amplitude: 1.0,
-            squeezed_index: 0.0,
-            bispectrum: &b,
-        };
+        let shape = local(s.prim);
         let (k1, k2) = (1e-4, 2e-4);
         let slope = (delta_b(&shape, 3.0, k2, 1.0, &s.power)
             / delta_b(&shape, 3.0, k1, 1.0, &s.power))
@@ -897,10 +920,8 @@ mod tests {
         let got = delta_b(&shape, 2.0 * 1.686, k1, 1.0, &s.power);
         assert!((got / expect - 1.0).abs() < 1e-3, "{got} {expect}");
         let eq = ShapeInput {
-            name: "eq".into(),
-            squeezed_amplitude: 1.0,
             squeezed_index: 2.0,
-            bispectrum: &b,
+            ..local(s.prim)
         };
         assert_eq!(delta_b(&eq, 3.0, k1, 1.0, &s.power), 0.0);
     }
@@ -912,13 +933,7 @@ mod tests {
     #[test]
     fn power_spectrum_saturates_at_cosmic_variance() {
         let s = setup();
-        let b = local_b(s.prim);
-        let shapes = [ShapeInput {
-            name: "local".into(),
-            squeezed_amplitude: 1.0,
-            squeezed_index: 0.0,
-            bispectrum: &b,
-        }];
+        let shapes = [local(s.prim)];
         let st = SurveySettings::default();
         let sig = |nbar: f64| {
             let mut sv = quick(nbar, 2.0, true);
@@ -940,13 +955,7 @@ mod tests {
     #[test]
     fn two_tracers_cancel_cosmic_variance() {
         let s = setup();
-        let b = local_b(s.prim);
-        let shapes = [ShapeInput {
-            name: "local".into(),
-            squeezed_amplitude: 1.0,
-            squeezed_index: 0.0,
-            bispectrum: &b,
-        }];
+        let shapes = [local(s.prim)];
         let st = SurveySettings::default();
         let mut one = quick(1e2, 2.0, true);
         one.nuisance = NuisanceSwitches {
@@ -985,12 +994,7 @@ mod tests {
     fn bispectrum_matches_brute_force() {
         let s = setup();
         let b = local_b(s.prim);
-        let shapes = [ShapeInput {
-            name: "local".into(),
-            squeezed_amplitude: 1.0,
-            squeezed_index: 0.0,
-            bispectrum: &b,
-        }];
+        let shapes = [local(s.prim)];
         let mut sv = quick(3e-4, 2.0, true);
         sv.bins[0].volume_mpc3 = 1e9;
         sv.nuisance = NuisanceSwitches {
@@ -1127,19 +1131,12 @@ mod tests {
     #[test]
     fn fisher_is_psd_and_marginal_exceeds_conditional() {
         let s = setup();
-        let b = local_b(s.prim);
         let shapes = [
-            ShapeInput {
-                name: "local".into(),
-                squeezed_amplitude: 1.0,
-                squeezed_index: 0.0,
-                bispectrum: &b,
-            },
+            local(s.prim),
             ShapeInput {
                 name: "half".into(),
-                squeezed_amplitude: 1.0,
                 squeezed_index: 0.5,
-                bispectrum: &b,
+                ..local(s.prim)
             },
         ];
         let sv = Survey::quick(5.0, 0.8, 5e-4, 1.8, false, 0.6736).unwrap();
