@@ -1,0 +1,510 @@
+//! The CMB bispectrum Fisher engine: T, E and T+E, any separable primordial shape, the
+//! cumulative Fisher matrix on a whole l_max grid in one pass.
+//!
+//! For shapes B_Phi = Sum_t c_t P(k1)^p1 P(k2)^p2 P(k3)^p3 (all permutations written out,
+//! [`crate::shapes::Separable`]) the reduced bispectrum is
+//! b^XYZ_{l1 l2 l3} = Sum_t c_t Integral r^2 dr X^{p1,X}_{l1}(r) X^{p2,Y}_{l2}(r)
+//! X^{p3,Z}_{l3}(r), with X^{p,X}_l(r) = (2/pi) Integral k^2 dk P_Phi(k)^p Delta^X_l(k)
+//! j_l(k r) (Komatsu & Spergel 2001, PRD 63, 063002, for local; the same line-of-sight
+//! form for every separable template). The Fisher matrix (Komatsu & Spergel 2001; T+E as
+//! in Babich & Zaldarriaga 2004, Yadav, Komatsu & Wandelt 2007) is
+//! F_ij = (f_sky / 6) Sum_{l1 l2 l3} G^2_{l1 l2 l3} Sum b^i_{XYZ} C^-1_{XX'} C^-1_{YY'}
+//! C^-1_{ZZ'} b^j_{X'Y'Z'}, G^2 = (2l1+1)(2l2+1)(2l3+1)/(4 pi) (l1 l2 l3; 0 0 0)^2, the
+//! unrestricted sum over all l's (equal to the restricted sum with 1/Delta_{l1l2l3}).
+//!
+//! Fast path (exact; Smith & Zaldarriaga 2006, astro-ph/0612571): with
+//! (l1 l2 l3; 0 0 0)^2 = (1/2) Integral_{-1}^{1} P_l1 P_l2 P_l3 d mu, the sum factorizes:
+//! F_ij = (f_sky / 48 pi) Integral d mu Integral r^2 dr Integral r'^2 dr'
+//! Sum_{t in i, u in j} c_t c_u Prod_{a=1..3} S_{p_ta p_ua}(r, r', mu), with
+//! S_ab(r, r', mu) = Sum_l (2l+1) P_l(mu) Sum_XY X^{a,X}_l(r) C^-1_{l,XY} X^{b,Y}_l(r').
+//! Gauss-Legendre in mu with ceil(3 l_max / 2) + 1 nodes integrates the degree-3 l_max
+//! polynomial exactly, and S is a matrix product over l for each mu (blocked, via
+//! matrixmultiply's dgemm). Accumulating S over l in blocks that end at the l_max grid
+//! values gives the whole cumulative grid in one pass. Cost: N_mu x N_pairs x N_r^2 x
+//! (fields x l_max) multiply-adds.
+
+use rayon::prelude::*;
+
+use crate::cmb::experiment::Experiment;
+use crate::cmb::transfer::{Field, RadialGrid, TransferTable};
+use crate::cosmology::Primordial;
+use crate::fisher::FisherMatrix;
+use crate::numerics::GaussLegendre;
+use crate::shapes::Shape;
+
+/// Which fields enter a Fisher matrix.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, serde::Serialize)]
+pub enum FieldSet {
+    /// Temperature only.
+    T,
+    /// E polarization only.
+    E,
+    /// Both, with the 2x2 covariance per l.
+    TE,
+}
+
+impl FieldSet {
+    /// Output label: "T", "E", "T+E".
+    pub fn label(self) -> &'static str {
+        match self {
+            FieldSet::T => "T",
+            FieldSet::E => "E",
+            FieldSet::TE => "T+E",
+        }
+    }
+
+    /// Parses "T", "E", "T+E".
+    pub fn parse(s: &str) -> Option<Self> {
+        match s.trim() {
+            "T" | "t" => Some(FieldSet::T),
+            "E" | "e" => Some(FieldSet::E),
+            "T+E" | "t+e" | "TE" => Some(FieldSet::TE),
+            _ => None,
+        }
+    }
+}
+
+/// Everything the engine needs.
+pub struct CmbFisherInput<'a> {
+    /// Transfer functions Delta^X_l(k).
+    pub transfer: &'a TransferTable,
+    /// The primordial spectrum.
+    pub primordial: Primordial,
+    /// Shapes (Fisher parameters, in order).
+    pub shapes: &'a [Shape],
+    /// Noise, beam, sky fraction, multipole ranges.
+    pub experiment: &'a Experiment,
+    /// CMB temperature in K (to make the noise dimensionless).
+    pub t_cmb_k: f64,
+    /// The l_max grid (increasing; each <= the transfer table's l_max).
+    pub lmax_grid: &'a [usize],
+    /// Field sets to compute.
+    pub field_sets: &'a [FieldSet],
+    /// Radial quadrature.
+    pub radial: &'a RadialGrid,
+    /// Run the outer loops in parallel.
+    pub parallel: bool,
+}
+
+/// Result: one Fisher matrix per (field set, l_max).
+#[derive(Debug, Clone, serde::Serialize)]
+pub struct CmbForecast {
+    /// The l_max grid.
+    pub lmax: Vec<usize>,
+    /// Field sets, in the order of `fisher`.
+    pub field_sets: Vec<FieldSet>,
+    /// Shape names.
+    pub shapes: Vec<String>,
+    /// fisher[field_set][lmax index], parameters `fnl_<shape>`.
+    pub fisher: Vec<Vec<FisherMatrix>>,
+}
+
+/// Precomputed radial functions and inverse covariances: the "plan" of the engine.
+pub struct BispectrumPlan {
+    lmax: usize,
+    n_r: usize,
+    exponents: Vec<f64>,
+    /// Terms per shape: (coefficient, exponent indices for the three legs).
+    terms: Vec<Vec<(f64, [usize; 3])>>,
+    fields: Vec<Field>,
+    /// X[e][f] is an (lmax+1) x n_r row-major matrix.
+    x: Vec<Vec<Vec<f64>>>,
+    /// Inverse covariance per field set: cinv[fs][l] as [TT, TE, EE] (in the table's
+    /// field indices; unused entries zero).
+    cinv: Vec<Vec<[f64; 3]>>,
+    field_sets: Vec<FieldSet>,
+    radial_w: Vec<f64>,
+    f_sky: f64,
+    shape_names: Vec<String>,
+}
+
+impl BispectrumPlan {
+    /// Builds the radial functions X^{p,X}_l(r) and the inverse covariances.
+    pub fn new(inp: &CmbFisherInput<'_>) -> Self {
+        let tr = inp.transfer;
+        let lmax = inp.lmax_grid.iter().copied().max().unwrap_or(2).min(tr.lmax());
+        let n_r = inp.radial.len();
+        // Exponents used by any shape, and the terms as exponent indices.
+        let mut exponents: Vec<f64> = Vec::new();
+        let mut terms = Vec::new();
+        for s in inp.shapes {
+            let sep = s.separable();
+            let mut ts = Vec::new();
+            for t in sep.terms() {
+                let mut idx = [0usize; 3];
+                for (a, &p) in t.powers.iter().enumerate() {
+                    idx[a] = match exponents.iter().position(|&e| (e - p).abs() < 1e-12) {
+                        Some(i) => i,
+                        None => {
+                            exponents.push(p);
+                            exponents.len() - 1
+                        }
+                    };
+                }
+                ts.push((t.coeff, idx));
+            }
+            terms.push(ts);
+        }
+        let fields = tr.fields().to_vec();
+        let nf = fields.len();
+        let ne = exponents.len();
+        let nl = lmax + 1;
+        // X[r][e][f][l], computed per r in parallel, then transposed.
+        let prim = inp.primordial;
+        let per_r = |ir: usize| -> Vec<f64> {
+            let r = inp.radial.r[ir];
+            let mut out = vec![0.0; ne * nf * nl];
+            let mut j = vec![0.0; tr.lmax() + 1];
+            let mut coef = vec![0.0; ne];
+            for (ik, (&k, &w)) in tr.k().iter().zip(tr.weights()).enumerate() {
+                crate::special::bessel::sph_bessel_all_l(lmax as u32, k * r, &mut j[..nl]);
+                let pk = prim.p_phi(k);
+                for (e, c) in coef.iter_mut().enumerate() {
+                    *c = 2.0 / std::f64::consts::PI * w * k * k * pk.powf(exponents[e]);
+                }
+                for f in 0..nf {
+                    let g = &tr.row(f, ik)[..nl];
+                    for (e, &c) in coef.iter().enumerate() {
+                        let o = &mut out[(e * nf + f) * nl..(e * nf + f + 1) * nl];
+                        for l in 0..nl {
+                            o[l] += c * g[l] * j[l];
+                        }
+                    }
+                }
+            }
+            out
+        };
+        let rows: Vec<Vec<f64>> = if inp.parallel {
+            (0..n_r).into_par_iter().map(per_r).collect()
+        } else {
+            (0..n_r).map(per_r).collect()
+        };
+        let mut x = vec![vec![vec![0.0; nl * n_r]; nf]; ne];
+        for (ir, row) in rows.iter().enumerate() {
+            for e in 0..ne {
+                for f in 0..nf {
+                    let src = &row[(e * nf + f) * nl..(e * nf + f + 1) * nl];
+                    for l in 0..nl {
+                        x[e][f][l * n_r + ir] = src[l];
+                    }
+                }
+            }
+        }
+        // Covariances.
+        let it = tr.field_index(Field::T);
+        let ie = tr.field_index(Field::E);
+        let exp = inp.experiment;
+        let cl = |a: Option<usize>, b: Option<usize>| match (a, b) {
+            (Some(a), Some(b)) => tr.cl(&prim, a, b),
+            _ => vec![0.0; tr.lmax() + 1],
+        };
+        let (ctt, cte, cee) = (cl(it, it), cl(it, ie), cl(ie, ie));
+        let mut cinv = Vec::new();
+        for &fs in inp.field_sets {
+            let mut v = vec![[0.0; 3]; nl];
+            for (l, c) in v.iter_mut().enumerate() {
+                if l < exp.l_min.max(2) {
+                    continue;
+                }
+                let use_t = it.is_some() && l <= exp.lmax_t && fs != FieldSet::E;
+                let use_e = ie.is_some() && l <= exp.lmax_e && fs != FieldSet::T;
+                let tt = ctt[l] + exp.noise(l, false, inp.t_cmb_k);
+                let ee = cee[l] + exp.noise(l, true, inp.t_cmb_k);
+                match (use_t, use_e) {
+                    (true, true) => {
+                        let det = tt * ee - cte[l] * cte[l];
+                        *c = [ee / det, -cte[l] / det, tt / det];
+                    }
+                    (true, false) => *c = [1.0 / tt, 0.0, 0.0],
+                    (false, true) => *c = [0.0, 0.0, 1.0 / ee],
+                    (false, false) => {}
+                }
+            }
+            cinv.push(v);
+        }
+        Self {
+            lmax,
+            n_r,
+            exponents,
+            terms,
+            fields,
+            x,
+            cinv,
+            field_sets: inp.field_sets.to_vec(),
+            radial_w: inp.radial.w.clone(),
+            f_sky: exp.f_sky,
+            shape_names: inp.shapes.iter().map(|s| s.name()).collect(),
+        }
+    }
+
+    /// The exponents of P_Phi that the radial functions carry.
+    pub fn exponents(&self) -> &[f64] {
+        &self.exponents
+    }
+
+    /// X^{p_e, field f}_l(r_ir).
+    pub fn radial_function(&self, e: usize, f: usize, l: usize, ir: usize) -> f64 {
+        self.x[e][f][l * self.n_r + ir]
+    }
+
+    /// Reduced bispectrum b^{XYZ}_{l1 l2 l3} of shape `s` (f_NL = 1) for fields given as
+    /// indices into the transfer table's fields.
+    pub fn reduced_bispectrum(&self, s: usize, l: [usize; 3], f: [usize; 3]) -> f64 {
+        let mut b = 0.0;
+        for &(c, e) in &self.terms[s] {
+            let mut acc = 0.0;
+            for ir in 0..self.n_r {
+                acc += self.radial_w[ir]
+                    * self.radial_function(e[0], f[0], l[0], ir)
+                    * self.radial_function(e[1], f[1], l[1], ir)
+                    * self.radial_function(e[2], f[2], l[2], ir);
+            }
+            b += c * acc;
+        }
+        b
+    }
+
+    /// The inverse covariance [TT, TE, EE] of field set `fs` at l.
+    pub fn inverse_covariance(&self, fs: usize, l: usize) -> [f64; 3] {
+        self.cinv[fs][l]
+    }
+
+    /// Number of fields in the transfer table.
+    pub fn n_fields(&self) -> usize {
+        self.fields.len()
+    }
+
+    /// Shapes' term lists (coefficient, exponent indices).
+    pub fn terms(&self) -> &[Vec<(f64, [usize; 3])>] {
+        &self.terms
+    }
+}
+
+/// Runs the fast engine.
+pub fn cmb_fisher(inp: &CmbFisherInput<'_>) -> CmbForecast {
+    let plan = BispectrumPlan::new(inp);
+    cmb_fisher_with_plan(&plan, inp.lmax_grid, inp.parallel)
+}
+
+/// Runs the fast engine on a prepared plan.
+pub fn cmb_fisher_with_plan(plan: &BispectrumPlan, lmax_grid: &[usize], parallel: bool) -> CmbForecast {
+    let lmax = plan.lmax;
+    let grid: Vec<usize> = lmax_grid.iter().map(|&l| l.min(lmax)).collect();
+    let n_mu = (3 * lmax).div_ceil(2) + 1;
+    let gl = GaussLegendre::new(n_mu);
+    let ns = plan.terms.len();
+    let nfs = plan.field_sets.len();
+    let nm = grid.len();
+    let ne = plan.exponents.len();
+    let n_r = plan.n_r;
+    let nf = plan.fields.len();
+    // Z[fs][b][f] = Sum_f' Cinv_{f f'} X[b][f'] (l rows, r columns).
+    let z: Vec<Vec<Vec<Vec<f64>>>> = (0..nfs)
+        .map(|fs| {
+            (0..ne)
+                .map(|b| {
+                    (0..nf)
+                        .map(|f| {
+                            let mut out = vec![0.0; (lmax + 1) * n_r];
+                            for l in 0..=lmax {
+                                let ci = plan.cinv[fs][l];
+                                for fp in 0..nf {
+                                    let c = cinv_entry(&ci, plan.fields[f], plan.fields[fp]);
+                                    if c == 0.0 {
+                                        continue;
+                                    }
+                                    let src = &plan.x[b][fp][l * n_r..(l + 1) * n_r];
+                                    let dst = &mut out[l * n_r..(l + 1) * n_r];
+                                    for (d, s) in dst.iter_mut().zip(src) {
+                                        *d += c * s;
+                                    }
+                                }
+                            }
+                            out
+                        })
+                        .collect()
+                })
+                .collect()
+        })
+        .collect();
+    // Blocks of l: (lo, hi] per grid point; l < 2 never enters (Cinv = 0 there).
+    let mut edges = vec![1usize];
+    edges.extend(&grid);
+    let pairs: Vec<(usize, usize)> = (0..ne).flat_map(|a| (a..ne).map(move |b| (a, b))).collect();
+    let pair_index = |a: usize, b: usize| -> (usize, bool) {
+        let (lo, hi, tr) = if a <= b { (a, b, false) } else { (b, a, true) };
+        (pairs.iter().position(|&p| p == (lo, hi)).unwrap_or(0), tr)
+    };
+    // Term pairs per shape pair (i <= j): (c_t c_u, [(pair, transposed); 3]).
+    let mut term_pairs: Vec<(usize, usize, Vec<(f64, [(usize, bool); 3])>)> = Vec::new();
+    for i in 0..ns {
+        for j in i..ns {
+            let mut v = Vec::new();
+            for &(ct, et) in &plan.terms[i] {
+                for &(cu, eu) in &plan.terms[j] {
+                    v.push((ct * cu, [pair_index(et[0], eu[0]), pair_index(et[1], eu[1]), pair_index(et[2], eu[2])]));
+                }
+            }
+            term_pairs.push((i, j, v));
+        }
+    }
+    let max_block = edges.windows(2).map(|w| w[1] - w[0]).max().unwrap_or(1);
+    let w_r = &plan.radial_w;
+    // One mu node: returns F[fs][m][i][j] contributions (flattened).
+    let per_mu = |(mu, wmu): (f64, f64), acc: &mut Vec<f64>, scratch: &mut Scratch| {
+        legendre_all(lmax, mu, &mut scratch.pl);
+        for fs in 0..nfs {
+            scratch.s.iter_mut().for_each(|v| v.iter_mut().for_each(|x| *x = 0.0));
+            for (m, w) in edges.windows(2).enumerate() {
+                let (lo, hi) = (w[0] + 1, w[1]);
+                if hi >= lo {
+                    let nb = hi - lo + 1;
+                    for (ip, &(a, b)) in pairs.iter().enumerate() {
+                        for f in 0..nf {
+                            // A = diag((2l+1) P_l) X[a][f][lo..=hi], (nb x n_r).
+                            let xa = &plan.x[a][f][lo * n_r..(hi + 1) * n_r];
+                            let za = &z[fs][b][f][lo * n_r..(hi + 1) * n_r];
+                            let asc = &mut scratch.a[..nb * n_r];
+                            for (li, l) in (lo..=hi).enumerate() {
+                                let fac = (2 * l + 1) as f64 * scratch.pl[l];
+                                for ir in 0..n_r {
+                                    asc[li * n_r + ir] = fac * xa[li * n_r + ir];
+                                }
+                            }
+                            // S += A^T Z.
+                            matrixmultiply_safe::dgemm_at_b(n_r, nb, n_r, asc, za, &mut scratch.s[ip]);
+                        }
+                    }
+                }
+                // Evaluate the products for this cumulative l_max.
+                for (tp_i, (_, _, list)) in term_pairs.iter().enumerate() {
+                    let mut tot = 0.0;
+                    for &(c, legs) in list {
+                        let mut sum = 0.0;
+                        let (s0, s1, s2) = (&scratch.s[legs[0].0], &scratch.s[legs[1].0], &scratch.s[legs[2].0]);
+                        for ir in 0..n_r {
+                            let mut row = 0.0;
+                            for jr in 0..n_r {
+                                let g = |s: &Vec<f64>, t: bool| if t { s[jr * n_r + ir] } else { s[ir * n_r + jr] };
+                                row += w_r[jr] * g(s0, legs[0].1) * g(s1, legs[1].1) * g(s2, legs[2].1);
+                            }
+                            sum += w_r[ir] * row;
+                        }
+                        tot += c * sum;
+                    }
+                    acc[(fs * nm + m) * term_pairs.len() + tp_i] += wmu * tot;
+                }
+            }
+        }
+    };
+    let n_tp = term_pairs.len();
+    let mk_scratch = || Scratch {
+        pl: vec![0.0; lmax + 1],
+        a: vec![0.0; max_block * n_r],
+        s: vec![vec![0.0; n_r * n_r]; pairs.len()],
+    };
+    let nodes: Vec<(f64, f64)> = gl.nodes.iter().copied().zip(gl.weights.iter().copied()).collect();
+    let total: Vec<f64> = if parallel {
+        nodes
+            .par_chunks(8)
+            .map(|chunk| {
+                let mut acc = vec![0.0; nfs * nm * n_tp];
+                let mut sc = mk_scratch();
+                for &node in chunk {
+                    per_mu(node, &mut acc, &mut sc);
+                }
+                acc
+            })
+            .reduce(|| vec![0.0; nfs * nm * n_tp], |mut a, b| {
+                a.iter_mut().zip(&b).for_each(|(x, y)| *x += y);
+                a
+            })
+    } else {
+        let mut acc = vec![0.0; nfs * nm * n_tp];
+        let mut sc = mk_scratch();
+        for &node in &nodes {
+            per_mu(node, &mut acc, &mut sc);
+        }
+        acc
+    };
+    let norm = plan.f_sky / (48.0 * std::f64::consts::PI);
+    let names: Vec<String> = plan.shape_names.iter().map(|s| format!("fnl_{s}")).collect();
+    let fisher = (0..nfs)
+        .map(|fs| {
+            (0..nm)
+                .map(|m| {
+                    let mut data = vec![0.0; ns * ns];
+                    for (tp_i, &(i, j, _)) in term_pairs.iter().enumerate() {
+                        let v = norm * total[(fs * nm + m) * n_tp + tp_i];
+                        data[i * ns + j] = v;
+                        data[j * ns + i] = v;
+                    }
+                    FisherMatrix::from_rows(names.clone(), data)
+                })
+                .collect()
+        })
+        .collect();
+    CmbForecast {
+        lmax: grid,
+        field_sets: plan.field_sets.clone(),
+        shapes: plan.shape_names.clone(),
+        fisher,
+    }
+}
+
+struct Scratch {
+    pl: Vec<f64>,
+    a: Vec<f64>,
+    s: Vec<Vec<f64>>,
+}
+
+fn cinv_entry(c: &[f64; 3], a: Field, b: Field) -> f64 {
+    match (a, b) {
+        (Field::T, Field::T) => c[0],
+        (Field::E, Field::E) => c[2],
+        _ => c[1],
+    }
+}
+
+/// P_l(mu) for l = 0..=lmax by the upward recurrence.
+pub fn legendre_all(lmax: usize, mu: f64, out: &mut [f64]) {
+    out[0] = 1.0;
+    if lmax >= 1 {
+        out[1] = mu;
+    }
+    for l in 2..=lmax {
+        let lf = l as f64;
+        out[l] = ((2.0 * lf - 1.0) * mu * out[l - 1] - (lf - 1.0) * out[l - 2]) / lf;
+    }
+}
+
+mod matrixmultiply_safe {
+    //! The one place that calls matrixmultiply (its dgemm takes raw pointers).
+    #![allow(unsafe_code)]
+
+    /// C (m x n) += A^T B, A is k x m, B is k x n, all row-major and in bounds.
+    pub fn dgemm_at_b(m: usize, k: usize, n: usize, a: &[f64], b: &[f64], c: &mut [f64]) {
+        assert!(a.len() >= k * m && b.len() >= k * n && c.len() >= m * n);
+        // SAFETY: the slices hold at least k*m, k*n and m*n elements (asserted above),
+        // the strides below address exactly those elements, and c does not
+        // alias a or b (distinct borrows).
+        unsafe {
+            matrixmultiply::dgemm(
+                m,
+                k,
+                n,
+                1.0,
+                a.as_ptr(),
+                1,
+                m as isize,
+                b.as_ptr(),
+                n as isize,
+                1,
+                1.0,
+                c.as_mut_ptr(),
+                n as isize,
+                1,
+            );
+        }
+    }
+}
