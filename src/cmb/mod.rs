@@ -1,0 +1,14 @@
+//! CMB physics.
+//!
+//! [`thermal`]: the thermal history of the photon-baryon plasma, i.e. hydrogen and helium
+//! recombination (effective three-level atom of Seager, Sasselov & Scott 1999), the matter
+//! temperature, tanh reionization fixed by the optical depth, and what follows from them:
+//! the optical depth and visibility function, the last-scattering and drag redshifts, the
+//! sound horizon, the acoustic angle and the diffusion damping scale. A line-of-sight
+//! Boltzmann solver reads the opacity and visibility from the conformal-time tables of
+//! [`ThermalHistory`].
+
+mod stiff;
+pub mod thermal;
+
+pub use thermal::{Reionization, ThermalHistory, ThermalSummary};
