@@ -52,12 +52,16 @@
 //!
 //! ### Stiffness
 //! At early times the rates that pull x_H, x_He towards Saha equilibrium and T_m towards T_r
-//! exceed H by up to ~10^8: the system is stiff. It is integrated in t = ln a with an
+//! exceed H by up to ~10^7: the system is stiff. It is integrated in t = ln a with an
 //! L-stable Rosenbrock method with an embedded error estimate (Shampine & Reichelt 1997;
 //! see `stiff.rs`), which steps over the fast relaxation at the accuracy of the slow
-//! solution. Nothing is switched: the full three-level equations run from T_r = 10^4 K
-//! (where they reproduce Saha to 10^-10, the starting point) to today. The state is stored on
-//! a uniform ln a grid (cubic Hermite with the exact derivatives).
+//! solution. Nothing is switched: the full three-level equations run from T_r = 10^4 K,
+//! starting from the Saha state (an equilibrium of the equations), to today. The variables
+//! are the neutral fractions 1 - x_H and 1 - x_He, which keep full relative precision when
+//! they are ~10^-11. The integrator stops on every node of a uniform ln a grid, and the
+//! tables are cubic Hermite with fourth-order finite-difference derivatives of the node
+//! values (the right-hand side itself, evaluated a hair off the slow manifold of a stiff
+//! system, is a noisy derivative).
 //!
 //! ## Reionization
 //! The common-practice tanh model in y = (1+z)^(3/2) (Lewis 2008, arXiv:0804.3865, App. B):
