@@ -20,6 +20,7 @@
 #![warn(missing_docs)]
 
 pub mod cli;
+pub mod cmb;
 pub mod commands;
 pub mod constants;
 pub mod cosmology;

@@ -2,6 +2,7 @@
 
 use serde_json::json;
 
+use crate::cmb::ThermalHistory;
 use crate::cosmology::{Background, Cosmology, Growth, LinearPower};
 use crate::error::{Error, Location, Result};
 use crate::report::{Report, num};
@@ -36,20 +37,26 @@ pub fn validate_z(z: &[f64]) -> Result<()> {
     Ok(())
 }
 
-/// Builds the background report.
+/// Builds the background report, with the last-scattering numbers of the thermal history
+/// as top-level summary values.
 ///
 /// # Errors
-/// Invalid redshifts.
+/// Invalid redshifts; a `tau_reio` no reionization redshift reproduces; a failure of the
+/// recombination integration.
 pub fn background_report(c: &Cosmology, source: &str, z: &[f64]) -> Result<Report> {
     validate_z(z)?;
     let bg = Background::new(c);
     let growth = Growth::new(c);
     let power = LinearPower::eisenstein_hu(c);
+    let thermal = ThermalHistory::new(c, &bg)?;
+    let th = thermal.summary();
     let mut r = Report::new("background");
     r.notes = vec![
         "flat cosmology, massless neutrinos; distances and conformal time in Mpc; H in km/s/Mpc".into(),
         "growth = D(z)/D(0); growth_md = D(z) normalized to a in matter domination (the f_NL convention); growth_rate = dlnD/dlna".into(),
         "sigma8 from A_s with the Eisenstein-Hu (1998) transfer function, R = 8 Mpc/h".into(),
+        "thermal history: Seager-Sasselov-Scott three-level hydrogen (fudge 1.14) and helium; tanh reionization (width 0.5 in z) at z_reio, fixed by tau_reio".into(),
+        "z_star: recombination optical depth 1; z_drag: drag depth 1; r_star_mpc, r_drag_mpc: comoving sound horizons; theta_star_100 = 100 r_star / D_M(z_star); k_damping_mpc: diffusion damping wavenumber at z_star (1/Mpc); shell_width_mpc: FWHM of the visibility in conformal distance".into(),
     ];
     r.inputs = json!({
         "cosmology": super::cosmology_json(c, source),
@@ -61,6 +68,18 @@ pub fn background_report(c: &Cosmology, source: &str, z: &[f64]) -> Result<Repor
         .push(("conformal_age_mpc".into(), num(bg.conformal_age())));
     r.summary
         .push(("growth_md_today".into(), num(growth.d_md_today())));
+    for (key, value) in [
+        ("z_star", th.z_star),
+        ("r_star_mpc", th.r_star_mpc),
+        ("theta_star_100", th.theta_star_100),
+        ("z_drag", th.z_drag),
+        ("r_drag_mpc", th.r_drag_mpc),
+        ("k_damping_mpc", th.k_damping_mpc),
+        ("shell_width_mpc", th.visibility_fwhm_mpc),
+        ("z_reio", th.z_reio),
+    ] {
+        r.summary.push((key.into(), num(value)));
+    }
     r.columns = [
         "z",
         "hubble_km_s_mpc",
@@ -87,4 +106,45 @@ pub fn background_report(c: &Cosmology, source: &str, z: &[f64]) -> Result<Repor
         ]);
     }
     Ok(r)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn summary_carries_thermal_keys() {
+        let c = Cosmology::planck2018();
+        let r = background_report(&c, "test", &[0.0, 1.0]).unwrap();
+        let keys: Vec<&str> = r.summary.iter().map(|(k, _)| k.as_str()).collect();
+        for k in [
+            "sigma8",
+            "conformal_age_mpc",
+            "growth_md_today",
+            "z_star",
+            "r_star_mpc",
+            "theta_star_100",
+            "z_drag",
+            "r_drag_mpc",
+            "k_damping_mpc",
+            "shell_width_mpc",
+            "z_reio",
+        ] {
+            assert!(keys.contains(&k), "missing {k} in {keys:?}");
+        }
+        let get = |k: &str| {
+            r.summary
+                .iter()
+                .find(|(n, _)| n == k)
+                .unwrap()
+                .1
+                .as_f64()
+                .unwrap()
+        };
+        // Same numbers as the library (checked against camb in src/cmb/thermal.rs).
+        let th = ThermalHistory::new(&c, &Background::new(&c)).unwrap();
+        assert_eq!(get("z_star"), th.summary().z_star);
+        assert_eq!(get("shell_width_mpc"), th.summary().visibility_fwhm_mpc);
+        assert!(get("z_star") > get("z_drag"));
+    }
 }
