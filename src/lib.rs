@@ -28,6 +28,7 @@ pub mod fisher;
 pub mod input;
 pub mod numerics;
 pub mod report;
+pub mod special;
 
 pub use error::{Error, Location, Result};
 
