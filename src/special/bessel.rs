@@ -563,24 +563,10 @@ impl BesselTable {
     /// Table with `n_nodes` equally spaced nodes from `x_min` to `x_max`.
     ///
     /// # Errors
-    /// [`Error::OutOfRange`] unless 0 <= x_min < x_max < inf and n_nodes >= 2.
+    /// [`Error::OutOfRange`] unless 0 <= x_min < x_max < inf, n_nodes >= 2 and
+    /// l < 2^32 - 1.
     pub fn new(l: u32, x_min: f64, x_max: f64, n_nodes: usize) -> Result<Self> {
-        if !(x_min.is_finite() && x_min >= 0.0) {
-            return Err(Error::out_of_range(
-                Location::Builtin,
-                "x_min",
-                x_min,
-                "0 <= x_min < x_max, finite",
-            ));
-        }
-        if !(x_max.is_finite() && x_max > x_min) {
-            return Err(Error::out_of_range(
-                Location::Builtin,
-                "x_max",
-                x_max,
-                "x_min < x_max, finite",
-            ));
-        }
+        check_range(l, x_min, x_max)?;
         if n_nodes < 2 {
             return Err(Error::out_of_range(
                 Location::Builtin,
@@ -616,6 +602,7 @@ impl BesselTable {
     /// As [`BesselTable::new`], and [`Error::OutOfRange`] unless 0 < abs_tol and the grid
     /// needs fewer than 2^31 nodes.
     pub fn with_abs_tolerance(l: u32, x_min: f64, x_max: f64, abs_tol: f64) -> Result<Self> {
+        check_range(l, x_min, x_max)?;
         if !(abs_tol > 0.0 && abs_tol.is_finite()) {
             return Err(Error::out_of_range(
                 Location::Builtin,
@@ -696,6 +683,35 @@ impl BesselTable {
         let h3 = t3 * (0.5 + t * (-1.0 + 0.5 * t));
         f0 * h0 + d0 * h1 + s0 * h2 + f1 * h5 + d1 * h4 + s1 * h3
     }
+}
+
+/// Validates the order and the grid interval of a table.
+fn check_range(l: u32, x_min: f64, x_max: f64) -> Result<()> {
+    if l == u32::MAX {
+        return Err(Error::out_of_range(
+            Location::Builtin,
+            "l",
+            l as f64,
+            "l < 2^32 - 1 (the table also evaluates j_{l+1})",
+        ));
+    }
+    if !(x_min.is_finite() && x_min >= 0.0) {
+        return Err(Error::out_of_range(
+            Location::Builtin,
+            "x_min",
+            x_min,
+            "0 <= x_min < x_max, finite",
+        ));
+    }
+    if !(x_max.is_finite() && x_max > x_min) {
+        return Err(Error::out_of_range(
+            Location::Builtin,
+            "x_max",
+            x_max,
+            "x_min < x_max, finite",
+        ));
+    }
+    Ok(())
 }
 
 /// (j_l, j_l', j_l'') at x >= 0, with j' = (l/x) j_l - j_{l+1} and
@@ -934,6 +950,9 @@ mod tests {
         assert!(BesselTable::new(3, 1.0, 1.0, 10).is_err());
         assert!(BesselTable::new(3, -1.0, 1.0, 10).is_err());
         assert!(BesselTable::new(3, 0.0, 1.0, 1).is_err());
+        assert!(BesselTable::new(u32::MAX, 0.0, 1.0, 10).is_err());
+        assert!(BesselTable::with_abs_tolerance(3, 2.0, 1.0, 1e-10).is_err());
+        assert!(BesselTable::with_abs_tolerance(3, 0.0, 1.0, 0.0).is_err());
         let t = BesselTable::with_abs_tolerance(500, 0.0, 100.0, 1e-12).unwrap();
         assert!(t.interpolation_bound() <= 1e-12);
         assert_eq!(t.eval(150.0), sph_bessel(500, 150.0));

@@ -204,7 +204,7 @@ pub fn gaunt_000(l1: u32, l2: u32, l3: u32) -> f64 {
 /// allocation.
 pub fn wigner3j_000_fill_l3_recursive(l1: u32, l2: u32, out: &mut [f64]) {
     out.fill(0.0);
-    let (a, b) = (l1 as u128, l2 as u128);
+    let (a, b) = (l1 as u64, l2 as u64);
     let lmin = a.abs_diff(b);
     let lmax = a + b;
     // Pass 1: normalisation (compensated sum).
@@ -221,7 +221,7 @@ pub fn wigner3j_000_fill_l3_recursive(l1: u32, l2: u32, out: &mut [f64]) {
     let sign = if g_min % 2 == 1 { -1.0 } else { 1.0 };
     let scale = sign / sum.sqrt();
     // Pass 2: store.
-    let n = out.len() as u128;
+    let n = out.len() as u64;
     sweep_000(lmin, lmax, |l3, f| {
         if l3 < n {
             out[l3 as usize] = scale * f;
@@ -231,11 +231,14 @@ pub fn wigner3j_000_fill_l3_recursive(l1: u32, l2: u32, out: &mut [f64]) {
 
 /// Runs the unnormalised recursion f(lmin) = 1, f(l3 + 2) = -sqrt[X(l3+1)/X(l3+2)] f(l3)
 /// over l3 = lmin, lmin + 2, ..., lmax, calling `visit(l3, f)`.
-fn sweep_000(lmin: u128, lmax: u128, mut visit: impl FnMut(u128, f64)) {
-    let d2 = lmin * lmin;
-    let s2 = (lmax + 1) * (lmax + 1);
-    // X(j) = (j^2 - (l1-l2)^2)((l1+l2+1)^2 - j^2), exact in u128.
-    let x_of = |j: u128| (j * j - d2) * (s2 - j * j);
+fn sweep_000(lmin: u64, lmax: u64, mut visit: impl FnMut(u64, f64)) {
+    let d = lmin as f64;
+    let s1 = lmax as f64 + 1.0;
+    // X(j) = (j - d)(j + d)(s1 - j)(s1 + j): each factor an exact integer in f64.
+    let x_of = |j: u64| {
+        let j = j as f64;
+        ((j - d) * (j + d)) * ((s1 - j) * (s1 + j))
+    };
     let mut f = 1.0_f64;
     let mut l3 = lmin;
     loop {
@@ -243,7 +246,7 @@ fn sweep_000(lmin: u128, lmax: u128, mut visit: impl FnMut(u128, f64)) {
         if l3 + 2 > lmax {
             break;
         }
-        let ratio = x_of(l3 + 1) as f64 / x_of(l3 + 2) as f64;
+        let ratio = x_of(l3 + 1) / x_of(l3 + 2);
         f = -f * ratio.sqrt();
         l3 += 2;
     }
