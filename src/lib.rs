@@ -30,6 +30,7 @@ pub mod input;
 pub mod numerics;
 pub mod report;
 pub mod shapes;
+pub mod special;
 pub mod survey;
 
 pub use error::{Error, Location, Result};
