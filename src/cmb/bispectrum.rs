@@ -122,7 +122,13 @@ impl BispectrumPlan {
     /// Builds the radial functions X^{p,X}_l(r) and the inverse covariances.
     pub fn new(inp: &CmbFisherInput<'_>) -> Self {
         let tr = inp.transfer;
-        let lmax = inp.lmax_grid.iter().copied().max().unwrap_or(2).min(tr.lmax());
+        let lmax = inp
+            .lmax_grid
+            .iter()
+            .copied()
+            .max()
+            .unwrap_or(2)
+            .min(tr.lmax());
         let n_r = inp.radial.len();
         // Exponents used by any shape, and the terms as exponent indices.
         let mut exponents: Vec<f64> = Vec::new();
@@ -287,7 +293,11 @@ pub fn cmb_fisher(inp: &CmbFisherInput<'_>) -> CmbForecast {
 }
 
 /// Runs the fast engine on a prepared plan.
-pub fn cmb_fisher_with_plan(plan: &BispectrumPlan, lmax_grid: &[usize], parallel: bool) -> CmbForecast {
+pub fn cmb_fisher_with_plan(
+    plan: &BispectrumPlan,
+    lmax_grid: &[usize],
+    parallel: bool,
+) -> CmbForecast {
     let lmax = plan.lmax;
     let grid: Vec<usize> = lmax_grid.iter().map(|&l| l.min(lmax)).collect();
     let n_mu = (3 * lmax).div_ceil(2) + 1;
@@ -342,7 +352,14 @@ pub fn cmb_fisher_with_plan(plan: &BispectrumPlan, lmax_grid: &[usize], parallel
             let mut v = Vec::new();
             for &(ct, et) in &plan.terms[i] {
                 for &(cu, eu) in &plan.terms[j] {
-                    v.push((ct * cu, [pair_index(et[0], eu[0]), pair_index(et[1], eu[1]), pair_index(et[2], eu[2])]));
+                    v.push((
+                        ct * cu,
+                        [
+                            pair_index(et[0], eu[0]),
+                            pair_index(et[1], eu[1]),
+                            pair_index(et[2], eu[2]),
+                        ],
+                    ));
                 }
             }
             term_pairs.push((i, j, v));
@@ -354,7 +371,10 @@ pub fn cmb_fisher_with_plan(plan: &BispectrumPlan, lmax_grid: &[usize], parallel
     let per_mu = |(mu, wmu): (f64, f64), acc: &mut Vec<f64>, scratch: &mut Scratch| {
         legendre_all(lmax, mu, &mut scratch.pl);
         for fs in 0..nfs {
-            scratch.s.iter_mut().for_each(|v| v.iter_mut().for_each(|x| *x = 0.0));
+            scratch
+                .s
+                .iter_mut()
+                .for_each(|v| v.iter_mut().for_each(|x| *x = 0.0));
             for (m, w) in edges.windows(2).enumerate() {
                 let (lo, hi) = (w[0] + 1, w[1]);
                 if hi >= lo {
@@ -372,7 +392,14 @@ pub fn cmb_fisher_with_plan(plan: &BispectrumPlan, lmax_grid: &[usize], parallel
                                 }
                             }
                             // S += A^T Z.
-                            matrixmultiply_safe::dgemm_at_b(n_r, nb, n_r, asc, za, &mut scratch.s[ip]);
+                            matrixmultiply_safe::dgemm_at_b(
+                                n_r,
+                                nb,
+                                n_r,
+                                asc,
+                                za,
+                                &mut scratch.s[ip],
+                            );
                         }
                     }
                 }
@@ -381,12 +408,25 @@ pub fn cmb_fisher_with_plan(plan: &BispectrumPlan, lmax_grid: &[usize], parallel
                     let mut tot = 0.0;
                     for &(c, legs) in list {
                         let mut sum = 0.0;
-                        let (s0, s1, s2) = (&scratch.s[legs[0].0], &scratch.s[legs[1].0], &scratch.s[legs[2].0]);
+                        let (s0, s1, s2) = (
+                            &scratch.s[legs[0].0],
+                            &scratch.s[legs[1].0],
+                            &scratch.s[legs[2].0],
+                        );
                         for ir in 0..n_r {
                             let mut row = 0.0;
                             for jr in 0..n_r {
-                                let g = |s: &Vec<f64>, t: bool| if t { s[jr * n_r + ir] } else { s[ir * n_r + jr] };
-                                row += w_r[jr] * g(s0, legs[0].1) * g(s1, legs[1].1) * g(s2, legs[2].1);
+                                let g = |s: &Vec<f64>, t: bool| {
+                                    if t {
+                                        s[jr * n_r + ir]
+                                    } else {
+                                        s[ir * n_r + jr]
+                                    }
+                                };
+                                row += w_r[jr]
+                                    * g(s0, legs[0].1)
+                                    * g(s1, legs[1].1)
+                                    * g(s2, legs[2].1);
                             }
                             sum += w_r[ir] * row;
                         }
@@ -403,7 +443,12 @@ pub fn cmb_fisher_with_plan(plan: &BispectrumPlan, lmax_grid: &[usize], parallel
         a: vec![0.0; max_block * n_r],
         s: vec![vec![0.0; n_r * n_r]; pairs.len()],
     };
-    let nodes: Vec<(f64, f64)> = gl.nodes.iter().copied().zip(gl.weights.iter().copied()).collect();
+    let nodes: Vec<(f64, f64)> = gl
+        .nodes
+        .iter()
+        .copied()
+        .zip(gl.weights.iter().copied())
+        .collect();
     let total: Vec<f64> = if parallel {
         nodes
             .par_chunks(8)
@@ -415,10 +460,13 @@ pub fn cmb_fisher_with_plan(plan: &BispectrumPlan, lmax_grid: &[usize], parallel
                 }
                 acc
             })
-            .reduce(|| vec![0.0; nfs * nm * n_tp], |mut a, b| {
-                a.iter_mut().zip(&b).for_each(|(x, y)| *x += y);
-                a
-            })
+            .reduce(
+                || vec![0.0; nfs * nm * n_tp],
+                |mut a, b| {
+                    a.iter_mut().zip(&b).for_each(|(x, y)| *x += y);
+                    a
+                },
+            )
     } else {
         let mut acc = vec![0.0; nfs * nm * n_tp];
         let mut sc = mk_scratch();
@@ -428,7 +476,11 @@ pub fn cmb_fisher_with_plan(plan: &BispectrumPlan, lmax_grid: &[usize], parallel
         acc
     };
     let norm = plan.f_sky / (48.0 * std::f64::consts::PI);
-    let names: Vec<String> = plan.shape_names.iter().map(|s| format!("fnl_{s}")).collect();
+    let names: Vec<String> = plan
+        .shape_names
+        .iter()
+        .map(|s| format!("fnl_{s}"))
+        .collect();
     let fisher = (0..nfs)
         .map(|fs| {
             (0..nm)
@@ -506,5 +558,289 @@ mod matrixmultiply_safe {
                 1,
             );
         }
+    }
+}
+
+#[cfg(test)]
+pub(crate) mod tests {
+    use super::*;
+    use crate::cmb::experiment::Channel;
+    use crate::special::wigner::wigner3j_000_squared;
+
+    pub(crate) const CHI: f64 = 14_000.0;
+
+    /// A toy transfer table: T from a zero-thickness Sachs-Wolfe shell,
+    /// Delta^T_l = -(1/3) j_l(k chi) D(k), and (for the oracles only) an E-like field
+    /// 0.2 j_l(k (chi - 300)) D(k) min(1, k chi / 20), correlated with T but not nearly
+    /// degenerate. D = exp(-(k/k_D)^2) or 1.
+    pub(crate) fn toy_table(lmax: usize, k_d: Option<f64>, with_e: bool) -> TransferTable {
+        toy_table_k(lmax, k_d, with_e, 4.0)
+    }
+
+    /// As [`toy_table`] with k up to `kfac` l_max / chi.
+    pub(crate) fn toy_table_k(
+        lmax: usize,
+        k_d: Option<f64>,
+        with_e: bool,
+        kfac: f64,
+    ) -> TransferTable {
+        let kmax = kfac * lmax as f64 / CHI;
+        let panel = std::f64::consts::PI / CHI;
+        let n_panels = (kmax / panel).ceil() as usize;
+        let gl = GaussLegendre::new(6);
+        let (mut k, mut wk) = (Vec::new(), Vec::new());
+        for p in 0..n_panels {
+            let (x, w) = gl.mapped(p as f64 * panel, (p + 1) as f64 * panel);
+            k.extend(x);
+            wk.extend(w);
+        }
+        let nl = lmax + 1;
+        let mut fields = vec![Field::T];
+        if with_e {
+            fields.push(Field::E);
+        }
+        let mut data = vec![vec![0.0; k.len() * nl]; fields.len()];
+        let mut j = vec![0.0; nl];
+        for (ik, &kk) in k.iter().enumerate() {
+            let d = k_d.map_or(1.0, |kd| (-(kk / kd) * (kk / kd)).exp());
+            crate::special::bessel::sph_bessel_all_l(lmax as u32, kk * CHI, &mut j);
+            for l in 2..nl {
+                data[0][ik * nl + l] = -j[l] / 3.0 * d;
+            }
+            if with_e {
+                crate::special::bessel::sph_bessel_all_l(lmax as u32, kk * (CHI - 300.0), &mut j);
+                for l in 2..nl {
+                    data[1][ik * nl + l] = 0.2 * j[l] * d * (kk * CHI / 20.0).min(1.0);
+                }
+            }
+        }
+        TransferTable::new("toy shell", k, wk, lmax, fields, data)
+    }
+
+    pub(crate) fn toy_radial(half_width: f64, panels: usize) -> RadialGrid {
+        RadialGrid::panels(CHI - half_width, CHI + half_width, panels, 6)
+    }
+
+    fn experiment(lmax: usize, noisy: bool) -> Experiment {
+        let mut e = Experiment::ideal(lmax);
+        e.f_sky = 0.7;
+        if noisy {
+            e.channels.push(Channel {
+                label: "x".into(),
+                noise_t_uk_arcmin: 30.0,
+                noise_p_uk_arcmin: 42.0,
+                fwhm_arcmin: 60.0,
+            });
+        }
+        e
+    }
+
+    /// Direct triple sum with exact Wigner 3j, explicit field sums and the plan's radial
+    /// integrals: the slow oracle for the fast path.
+    fn brute_force(plan: &BispectrumPlan, fs: usize, lmax: usize, f_sky: f64) -> Vec<f64> {
+        let ns = plan.terms().len();
+        let nf = plan.n_fields();
+        let combos: Vec<[usize; 3]> = (0..nf)
+            .flat_map(|a| (0..nf).flat_map(move |b| (0..nf).map(move |c| [a, b, c])))
+            .collect();
+        let fields = |i: usize| plan.fields[i];
+        let mut f = vec![0.0; ns * ns];
+        for l1 in 2..=lmax {
+            for l2 in 2..=lmax {
+                for l3 in 2..=lmax {
+                    let w2 = wigner3j_000_squared(l1 as u32, l2 as u32, l3 as u32);
+                    if w2 == 0.0 {
+                        continue;
+                    }
+                    let g2 = ((2 * l1 + 1) * (2 * l2 + 1) * (2 * l3 + 1)) as f64
+                        / (4.0 * std::f64::consts::PI)
+                        * w2;
+                    let b: Vec<Vec<f64>> = (0..ns)
+                        .map(|s| {
+                            combos
+                                .iter()
+                                .map(|c| plan.reduced_bispectrum(s, [l1, l2, l3], *c))
+                                .collect()
+                        })
+                        .collect();
+                    let ci = [
+                        plan.inverse_covariance(fs, l1),
+                        plan.inverse_covariance(fs, l2),
+                        plan.inverse_covariance(fs, l3),
+                    ];
+                    for i in 0..ns {
+                        for j in 0..ns {
+                            let mut acc = 0.0;
+                            for (ia, a) in combos.iter().enumerate() {
+                                for (ib, bb) in combos.iter().enumerate() {
+                                    let mut c = 1.0;
+                                    for leg in 0..3 {
+                                        c *= cinv_entry(&ci[leg], fields(a[leg]), fields(bb[leg]));
+                                    }
+                                    if c != 0.0 {
+                                        acc += b[i][ia] * c * b[j][ib];
+                                    }
+                                }
+                            }
+                            f[i * ns + j] += g2 * acc;
+                        }
+                    }
+                }
+            }
+        }
+        f.iter().map(|v| v * f_sky / 6.0).collect()
+    }
+
+    fn shapes() -> Vec<Shape> {
+        ["local", "equilateral", "orthogonal", "delta=0.5"]
+            .iter()
+            .map(|s| s.parse().unwrap())
+            .collect()
+    }
+
+    #[test]
+    fn fast_path_equals_brute_force_for_every_field_set() {
+        let lmax = 24;
+        let tr = toy_table(lmax, Some(0.02), true);
+        let radial = toy_radial(600.0, 8);
+        let exp = experiment(lmax, true);
+        let sh = shapes();
+        let fsets = [FieldSet::T, FieldSet::E, FieldSet::TE];
+        let grid = [12, 18, lmax];
+        let inp = CmbFisherInput {
+            transfer: &tr,
+            primordial: Primordial::from_values(2.1e-9, 0.965, 0.05),
+            shapes: &sh,
+            experiment: &exp,
+            t_cmb_k: 2.7255,
+            lmax_grid: &grid,
+            field_sets: &fsets,
+            radial: &radial,
+            parallel: false,
+        };
+        let plan = BispectrumPlan::new(&inp);
+        let fast = cmb_fisher_with_plan(&plan, &grid, false);
+        let par = cmb_fisher_with_plan(&plan, &grid, true);
+        for (ifs, _) in fsets.iter().enumerate() {
+            for (m, &lm) in grid.iter().enumerate() {
+                let brute = brute_force(&plan, ifs, lm, exp.f_sky);
+                let f = &fast.fisher[ifs][m];
+                for i in 0..sh.len() {
+                    for j in 0..sh.len() {
+                        let (a, b) = (f.get(i, j), brute[i * sh.len() + j]);
+                        let scale = (f.get(i, i) * f.get(j, j)).sqrt();
+                        assert!(
+                            (a - b).abs() <= 1e-9 * scale,
+                            "fs {ifs} lmax {lm} ({i},{j}): fast {a} brute {b}"
+                        );
+                        let p = par.fisher[ifs][m].get(i, j);
+                        assert!((a - p).abs() <= 1e-12 * scale, "serial {a} vs parallel {p}");
+                    }
+                }
+            }
+        }
+    }
+
+    /// Sachs-Wolfe limit (zero thickness, no damping): b_{l1 l2 l3} = -6 f_NL
+    /// [C_l1 C_l2 + C_l2 C_l3 + C_l1 C_l3] for Delta T / T = -Phi / 3 (Komatsu & Spergel
+    /// 2001, Eq. 16), including the sign.
+    #[test]
+    fn sachs_wolfe_local_bispectrum_closed_form() {
+        // The zero-thickness kernel converges slowly in k: the tail beyond x = k chi costs
+        // about l^2 / (2 x^2) of C_l, so k runs to 20 l_max / chi here.
+        let lmax = 60;
+        let tr = toy_table_k(lmax, None, false, 20.0);
+        let radial = toy_radial(900.0, 240);
+        let exp = Experiment::ideal(lmax);
+        let sh = vec![Shape::Local];
+        let prim = Primordial::from_values(2.1e-9, 1.0, 0.05);
+        let inp = CmbFisherInput {
+            transfer: &tr,
+            primordial: prim,
+            shapes: &sh,
+            experiment: &exp,
+            t_cmb_k: 2.7255,
+            lmax_grid: &[lmax],
+            field_sets: &[FieldSet::T],
+            radial: &radial,
+            parallel: true,
+        };
+        let plan = BispectrumPlan::new(&inp);
+        let cl = tr.cl(&prim, 0, 0);
+        // SW plateau check of the toy table itself: l(l+1) C_l / 2 pi = A_s / 25.
+        for l in [2usize, 10, 40] {
+            let d = (l * (l + 1)) as f64 * cl[l] / (2.0 * std::f64::consts::PI);
+            assert!((d / (2.1e-9 / 25.0) - 1.0).abs() < 2e-3, "l={l} {d}");
+        }
+        let mut worst: f64 = 0.0;
+        for l in [
+            [2usize, 3, 3],
+            [10, 12, 14],
+            [20, 20, 20],
+            [5, 30, 33],
+            [40, 45, 51],
+        ] {
+            let b = plan.reduced_bispectrum(0, l, [0, 0, 0]);
+            let expect = -6.0 * (cl[l[0]] * cl[l[1]] + cl[l[1]] * cl[l[2]] + cl[l[0]] * cl[l[2]]);
+            worst = worst.max((b / expect - 1.0).abs());
+            assert!((b / expect - 1.0).abs() < 0.01, "{l:?}: {b} vs {expect}");
+        }
+        println!("Sachs-Wolfe closed form: worst relative deviation {worst:.2e}");
+    }
+
+    #[test]
+    fn restricted_sum_equals_unrestricted_over_six() {
+        // T only: Sum_{l1<=l2<=l3} G^2 b^2 / (Delta C C C) = (1/6) Sum over all l.
+        let lmax = 20;
+        let tr = toy_table(lmax, Some(0.01), false);
+        let radial = toy_radial(500.0, 6);
+        let exp = experiment(lmax, false);
+        let sh = vec![Shape::Local];
+        let prim = Primordial::from_values(2.1e-9, 0.965, 0.05);
+        let inp = CmbFisherInput {
+            transfer: &tr,
+            primordial: prim,
+            shapes: &sh,
+            experiment: &exp,
+            t_cmb_k: 2.7255,
+            lmax_grid: &[lmax],
+            field_sets: &[FieldSet::T],
+            radial: &radial,
+            parallel: false,
+        };
+        let plan = BispectrumPlan::new(&inp);
+        let cl = tr.cl(&prim, 0, 0);
+        let mut restricted = 0.0;
+        for l1 in 2..=lmax {
+            for l2 in l1..=lmax {
+                for l3 in l2..=lmax {
+                    let w2 = wigner3j_000_squared(l1 as u32, l2 as u32, l3 as u32);
+                    let g2 = ((2 * l1 + 1) * (2 * l2 + 1) * (2 * l3 + 1)) as f64
+                        / (4.0 * std::f64::consts::PI)
+                        * w2;
+                    let delta = if l1 == l2 && l2 == l3 {
+                        6.0
+                    } else if l1 == l2 || l2 == l3 {
+                        2.0
+                    } else {
+                        1.0
+                    };
+                    let b = plan.reduced_bispectrum(0, [l1, l2, l3], [0, 0, 0]);
+                    restricted += g2 * b * b / (delta * cl[l1] * cl[l2] * cl[l3]);
+                }
+            }
+        }
+        let fast = cmb_fisher_with_plan(&plan, &[lmax], false);
+        let f = fast.fisher[0][0].get(0, 0) / exp.f_sky;
+        assert!((f / restricted - 1.0).abs() < 1e-9, "{f} vs {restricted}");
+    }
+
+    #[test]
+    fn legendre_recurrence() {
+        let mut p = vec![0.0; 6];
+        legendre_all(5, 0.3, &mut p);
+        let x: f64 = 0.3;
+        let p5 = (63.0 * x.powi(5) - 70.0 * x.powi(3) + 15.0 * x) / 8.0;
+        assert!((p[5] - p5).abs() < 1e-15);
     }
 }

@@ -72,7 +72,12 @@ impl Experiment {
         let lf = l as f64;
         let mut inv = 0.0;
         for c in &self.channels {
-            let d = if pol { c.noise_p_uk_arcmin } else { c.noise_t_uk_arcmin } * ARCMIN / t_uk;
+            let d = if pol {
+                c.noise_p_uk_arcmin
+            } else {
+                c.noise_t_uk_arcmin
+            } * ARCMIN
+                / t_uk;
             if d == 0.0 {
                 return 0.0;
             }
@@ -125,12 +130,22 @@ impl ExperimentTable {
     pub fn resolve(&self, src: &Source) -> Result<Experiment> {
         let f_sky = *self.f_sky.get_ref();
         if !(f_sky > 0.0 && f_sky <= 1.0) {
-            return Err(Error::out_of_range(src.at(&self.f_sky), "f_sky", f_sky, "0 < f_sky <= 1"));
+            return Err(Error::out_of_range(
+                src.at(&self.f_sky),
+                "f_sky",
+                f_sky,
+                "0 < f_sky <= 1",
+            ));
         }
         let int = |v: &Spanned<i64>, field: &str, lo: i64, hi: i64| -> Result<usize> {
             let x = *v.get_ref();
             if x < lo || x > hi {
-                Err(Error::out_of_range(src.at(v), field, x as f64, &format!("{lo} <= {field} <= {hi}")))
+                Err(Error::out_of_range(
+                    src.at(v),
+                    field,
+                    x as f64,
+                    &format!("{lo} <= {field} <= {hi}"),
+                ))
             } else {
                 Ok(x as usize)
             }
@@ -154,13 +169,23 @@ impl ExperimentTable {
         for c in &self.channel {
             let nt = *c.noise_t_uk_arcmin.get_ref();
             if !(nt.is_finite() && nt >= 0.0) {
-                return Err(Error::out_of_range(src.at(&c.noise_t_uk_arcmin), "noise_t_uk_arcmin", nt, "noise >= 0 microkelvin-arcmin"));
+                return Err(Error::out_of_range(
+                    src.at(&c.noise_t_uk_arcmin),
+                    "noise_t_uk_arcmin",
+                    nt,
+                    "noise >= 0 microkelvin-arcmin",
+                ));
             }
             let np = match &c.noise_p_uk_arcmin {
                 Some(v) => {
                     let x = *v.get_ref();
                     if !(x.is_finite() && x >= 0.0) {
-                        return Err(Error::out_of_range(src.at(v), "noise_p_uk_arcmin", x, "noise >= 0 microkelvin-arcmin"));
+                        return Err(Error::out_of_range(
+                            src.at(v),
+                            "noise_p_uk_arcmin",
+                            x,
+                            "noise >= 0 microkelvin-arcmin",
+                        ));
                     }
                     x
                 }
@@ -168,17 +193,28 @@ impl ExperimentTable {
             };
             let fw = *c.fwhm_arcmin.get_ref();
             if !(fw.is_finite() && (0.0..=600.0).contains(&fw)) {
-                return Err(Error::out_of_range(src.at(&c.fwhm_arcmin), "fwhm_arcmin", fw, "0 <= fwhm_arcmin <= 600"));
+                return Err(Error::out_of_range(
+                    src.at(&c.fwhm_arcmin),
+                    "fwhm_arcmin",
+                    fw,
+                    "0 <= fwhm_arcmin <= 600",
+                ));
             }
             channels.push(Channel {
-                label: c.label.clone().unwrap_or_else(|| format!("channel {}", channels.len() + 1)),
+                label: c
+                    .label
+                    .clone()
+                    .unwrap_or_else(|| format!("channel {}", channels.len() + 1)),
                 noise_t_uk_arcmin: nt,
                 noise_p_uk_arcmin: np,
                 fwhm_arcmin: fw,
             });
         }
         Ok(Experiment {
-            name: self.name.clone().unwrap_or_else(|| src.path().display().to_string()),
+            name: self
+                .name
+                .clone()
+                .unwrap_or_else(|| src.path().display().to_string()),
             f_sky,
             l_min,
             lmax_t,
@@ -205,7 +241,12 @@ pub fn load_experiment(path: &std::path::Path) -> Result<Experiment> {
 pub fn validate_lmax(list: &[usize], l_min: usize) -> Result<()> {
     for &l in list {
         if l <= l_min || l > 5000 {
-            return Err(Error::out_of_range(Location::Flag("--lmax".into()), "lmax", l as f64, &format!("{} <= lmax <= 5000", l_min + 1)));
+            return Err(Error::out_of_range(
+                Location::Flag("--lmax".into()),
+                "lmax",
+                l as f64,
+                &format!("{} <= lmax <= 5000", l_min + 1),
+            ));
         }
     }
     Ok(())
@@ -223,8 +264,18 @@ mod tests {
             noise_p_uk_arcmin: 10.0 * std::f64::consts::SQRT_2,
             fwhm_arcmin: 5.0,
         };
-        let one = Experiment { name: "x".into(), f_sky: 1.0, l_min: 2, lmax_t: 100, lmax_e: 100, channels: vec![c.clone()] };
-        let two = Experiment { channels: vec![c.clone(), c], ..one.clone() };
+        let one = Experiment {
+            name: "x".into(),
+            f_sky: 1.0,
+            l_min: 2,
+            lmax_t: 100,
+            lmax_e: 100,
+            channels: vec![c.clone()],
+        };
+        let two = Experiment {
+            channels: vec![c.clone(), c],
+            ..one.clone()
+        };
         let t = 2.7255;
         assert!((one.noise(100, false, t) / two.noise(100, false, t) - 2.0).abs() < 1e-12);
         assert!((one.noise(100, true, t) / one.noise(100, false, t) - 2.0).abs() < 1e-12);
@@ -234,7 +285,9 @@ mod tests {
         // Beam: exp(l(l+1) theta^2 / 8 ln 2).
         let th = 5.0 * ARCMIN;
         let ratio = one.noise(1000, false, t) / n0;
-        assert!((ratio.ln() - 1000.0 * 1001.0 * th * th / (8.0 * std::f64::consts::LN_2)).abs() < 1e-9);
+        assert!(
+            (ratio.ln() - 1000.0 * 1001.0 * th * th / (8.0 * std::f64::consts::LN_2)).abs() < 1e-9
+        );
         assert_eq!(Experiment::ideal(100).noise(50, true, t), 0.0);
     }
 }

@@ -33,7 +33,14 @@ pub struct TransferTable {
 
 impl TransferTable {
     /// Assembles a table. `data[f]` must hold `k.len() * (lmax + 1)` values, k-major.
-    pub fn new(label: &str, k: Vec<f64>, wk: Vec<f64>, lmax: usize, fields: Vec<Field>, data: Vec<Vec<f64>>) -> Self {
+    pub fn new(
+        label: &str,
+        k: Vec<f64>,
+        wk: Vec<f64>,
+        lmax: usize,
+        fields: Vec<Field>,
+        data: Vec<Vec<f64>>,
+    ) -> Self {
         assert_eq!(k.len(), wk.len());
         assert_eq!(fields.len(), data.len());
         for d in &data {
