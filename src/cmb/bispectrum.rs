@@ -346,7 +346,7 @@ pub fn cmb_fisher_with_plan(
         (pairs.iter().position(|&p| p == (lo, hi)).unwrap_or(0), tr)
     };
     // Term pairs per shape pair (i <= j): (c_t c_u, [(pair, transposed); 3]).
-    let mut term_pairs: Vec<(usize, usize, Vec<(f64, [(usize, bool); 3])>)> = Vec::new();
+    let mut term_pairs: Vec<TermPairs> = Vec::new();
     for i in 0..ns {
         for j in i..ns {
             let mut v = Vec::new();
@@ -380,10 +380,10 @@ pub fn cmb_fisher_with_plan(
                 if hi >= lo {
                     let nb = hi - lo + 1;
                     for (ip, &(a, b)) in pairs.iter().enumerate() {
-                        for f in 0..nf {
+                        for (xaf, zbf) in plan.x[a].iter().zip(&z[fs][b]) {
                             // A = diag((2l+1) P_l) X[a][f][lo..=hi], (nb x n_r).
-                            let xa = &plan.x[a][f][lo * n_r..(hi + 1) * n_r];
-                            let za = &z[fs][b][f][lo * n_r..(hi + 1) * n_r];
+                            let xa = &xaf[lo * n_r..(hi + 1) * n_r];
+                            let za = &zbf[lo * n_r..(hi + 1) * n_r];
                             let asc = &mut scratch.a[..nb * n_r];
                             for (li, l) in (lo..=hi).enumerate() {
                                 let fac = (2 * l + 1) as f64 * scratch.pl[l];
@@ -404,29 +404,31 @@ pub fn cmb_fisher_with_plan(
                     }
                 }
                 // Evaluate the products for this cumulative l_max.
+                for (st, s) in scratch.st.iter_mut().zip(&scratch.s) {
+                    for ir in 0..n_r {
+                        for jr in 0..n_r {
+                            st[jr * n_r + ir] = s[ir * n_r + jr];
+                        }
+                    }
+                }
+                let pick = |leg: Leg| {
+                    if leg.1 {
+                        &scratch.st[leg.0]
+                    } else {
+                        &scratch.s[leg.0]
+                    }
+                };
                 for (tp_i, (_, _, list)) in term_pairs.iter().enumerate() {
                     let mut tot = 0.0;
                     for &(c, legs) in list {
+                        let (s0, s1, s2) = (pick(legs[0]), pick(legs[1]), pick(legs[2]));
                         let mut sum = 0.0;
-                        let (s0, s1, s2) = (
-                            &scratch.s[legs[0].0],
-                            &scratch.s[legs[1].0],
-                            &scratch.s[legs[2].0],
-                        );
                         for ir in 0..n_r {
+                            let rows = ir * n_r..(ir + 1) * n_r;
+                            let (r0, r1, r2) = (&s0[rows.clone()], &s1[rows.clone()], &s2[rows]);
                             let mut row = 0.0;
                             for jr in 0..n_r {
-                                let g = |s: &Vec<f64>, t: bool| {
-                                    if t {
-                                        s[jr * n_r + ir]
-                                    } else {
-                                        s[ir * n_r + jr]
-                                    }
-                                };
-                                row += w_r[jr]
-                                    * g(s0, legs[0].1)
-                                    * g(s1, legs[1].1)
-                                    * g(s2, legs[2].1);
+                                row += w_r[jr] * r0[jr] * r1[jr] * r2[jr];
                             }
                             sum += w_r[ir] * row;
                         }
@@ -442,6 +444,7 @@ pub fn cmb_fisher_with_plan(
         pl: vec![0.0; lmax + 1],
         a: vec![0.0; max_block * n_r],
         s: vec![vec![0.0; n_r * n_r]; pairs.len()],
+        st: vec![vec![0.0; n_r * n_r]; pairs.len()],
     };
     let nodes: Vec<(f64, f64)> = gl
         .nodes
@@ -504,10 +507,19 @@ pub fn cmb_fisher_with_plan(
     }
 }
 
+/// A radial-function pair for one leg: (index of the exponent pair, transposed?).
+type Leg = (usize, bool);
+
+/// The term pairs of one shape pair (i, j): (c_t c_u, legs).
+type TermPairs = (usize, usize, Vec<(f64, [Leg; 3])>);
+
 struct Scratch {
     pl: Vec<f64>,
     a: Vec<f64>,
+    /// Cumulative S_ab per exponent pair (a <= b), n_r x n_r.
     s: Vec<Vec<f64>>,
+    /// Their transposes, refreshed after every block.
+    st: Vec<Vec<f64>>,
 }
 
 fn cinv_entry(c: &[f64; 3], a: Field, b: Field) -> f64 {
