@@ -6,6 +6,8 @@
 //! name (`_mpc`, `_h_mpc`, `_uk2`, ...). JSON is one object with `version`, the resolved
 //! `inputs`, any top-level summary values, and `rows`.
 
+pub mod figures;
+
 use serde_json::{Map, Value};
 
 /// Output format of a command.
@@ -177,6 +179,11 @@ fn cell_short(v: &Value) -> String {
     trim_zeros(&s)
 }
 
+/// [`trim_zeros`] for the figure code.
+pub(crate) fn trim_zeros_public(s: &str) -> String {
+    trim_zeros(s)
+}
+
 /// Drops trailing zeros of a decimal mantissa: "1.50000" -> "1.5", "2.000e3" -> "2e3".
 fn trim_zeros(s: &str) -> String {
     let (mant, exp) = match s.find('e') {
@@ -222,6 +229,25 @@ pub fn format_sig(x: f64, sig: usize) -> String {
         let decimals = (sig as i32 - 1 - mag).max(0) as usize;
         format!("{x:.decimals$}")
     }
+}
+
+/// Writes a file atomically: a temporary file in the same folder, then a rename, so an
+/// interrupted run never leaves a half-written output.
+///
+/// # Errors
+/// [`crate::Error::Io`].
+pub fn write_atomic(path: &std::path::Path, bytes: &[u8]) -> crate::Result<()> {
+    let name = path
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_default();
+    let tmp = path.with_file_name(format!(".{name}.tmp"));
+    let io = |source| crate::Error::Io {
+        path: path.to_path_buf(),
+        source,
+    };
+    std::fs::write(&tmp, bytes).map_err(io)?;
+    std::fs::rename(&tmp, path).map_err(io)
 }
 
 /// A JSON number that stays valid for non-finite values (null for NaN/inf).
