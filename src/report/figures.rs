@@ -549,6 +549,9 @@ pub fn ellipse_points(cov: [f64; 3], delta_chi2: f64, n: usize) -> Vec<(f64, f64
         .collect()
 }
 
+/// (label, palette index, 1-sigma points, 2-sigma points).
+type EllipseCurves = (String, usize, Vec<(f64, f64)>, Vec<(f64, f64)>);
+
 fn draw_ellipses<DB: DrawingBackend>(root: &Area<'_, DB>, p: &EllipsePlot) -> Result<()>
 where
     DB::ErrorType: 'static,
@@ -556,7 +559,7 @@ where
     let font = |sz: u32| (FAMILY, sz).into_font();
     let mut ext: f64 = 0.0;
     let mut eyt: f64 = 0.0;
-    let curves: Vec<(String, usize, Vec<(f64, f64)>, Vec<(f64, f64)>)> = p
+    let curves: Vec<EllipseCurves> = p
         .ellipses
         .iter()
         .filter(|e| e.1.iter().all(|v| v.is_finite()) && e.1[0] > 0.0 && e.1[2] > 0.0)
