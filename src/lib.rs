@@ -21,6 +21,7 @@
 
 pub mod cli;
 pub mod cmb;
+pub mod combine;
 pub mod commands;
 pub mod constants;
 pub mod cosmology;
@@ -29,6 +30,7 @@ pub mod fisher;
 pub mod input;
 pub mod numerics;
 pub mod report;
+pub mod scenario;
 pub mod shapes;
 pub mod special;
 pub mod survey;

@@ -1,0 +1,434 @@
+//! Scenarios: one cosmology, one or more CMB experiments, one or more surveys, the shapes,
+//! the l_max and k_max grids and the output options, in one TOML file.
+//!
+//! ```toml
+//! [scenario]
+//! name = "..."
+//! shapes = ["local", "equilateral", "orthogonal"]
+//! lmax = [500, 1000, 2000, 3000]
+//! kmax_h_mpc = [0.05, 0.1, 0.2]
+//! fields = ["T", "E", "T+E"]         # optional
+//! probes = ["P", "B", "P+B"]         # optional
+//! transfer = "shell"                 # or "full"
+//!
+//! [cosmology]                        # optional; Planck 2018 defaults
+//!
+//! [[cmb]]
+//! file = "cmb_satellite.toml"        # relative to the scenario file; or ideal = true
+//!
+//! [[survey]]
+//! file = "survey_wide_spectro.toml"
+//! ```
+//! Referenced files are read relative to the scenario file; the embedded demo scenario
+//! resolves them from copies compiled into the binary.
+
+use std::path::{Path, PathBuf};
+
+use serde::Deserialize;
+use toml::Spanned;
+
+use crate::cmb::bispectrum::FieldSet;
+use crate::cmb::experiment::{Experiment, ExperimentFile};
+use crate::cosmology::{Background, Cosmology, CosmologyTable, Growth};
+use crate::error::{Error, Location, Result};
+use crate::input::{Source, parse_toml};
+use crate::shapes::Shape;
+use crate::survey::fisher::Probe;
+use crate::survey::{Survey, SurveyFile};
+
+/// Which CMB transfer functions to use.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize, serde::Serialize, clap::ValueEnum)]
+#[serde(rename_all = "lowercase")]
+pub enum TransferChoice {
+    /// The finite-thickness Sachs-Wolfe shell with damping.
+    Shell,
+    /// The line-of-sight Boltzmann solution.
+    Full,
+}
+
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct ScenarioTable {
+    name: Option<String>,
+    shapes: Option<Spanned<Vec<String>>>,
+    lmax: Option<Spanned<Vec<i64>>>,
+    kmax_h_mpc: Option<Spanned<Vec<f64>>>,
+    fields: Option<Spanned<Vec<String>>>,
+    probes: Option<Spanned<Vec<String>>>,
+    transfer: Option<TransferChoice>,
+    shell_width_mpc: Option<Spanned<f64>>,
+    #[serde(default = "yes")]
+    damping: bool,
+}
+
+fn yes() -> bool {
+    true
+}
+
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct CmbEntry {
+    file: Option<Spanned<String>>,
+    #[serde(default)]
+    ideal: bool,
+}
+
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct SurveyEntry {
+    file: Spanned<String>,
+}
+
+/// Output options.
+#[derive(Debug, Clone, Copy, Deserialize, serde::Serialize, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct OutputOptions {
+    /// Write figures.
+    #[serde(default = "yes")]
+    pub figures: bool,
+    /// Write the LaTeX table.
+    #[serde(default = "yes")]
+    pub latex: bool,
+}
+
+impl Default for OutputOptions {
+    fn default() -> Self {
+        Self {
+            figures: true,
+            latex: true,
+        }
+    }
+}
+
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct ScenarioFile {
+    scenario: ScenarioTable,
+    cosmology: Option<CosmologyTable>,
+    #[serde(default)]
+    cmb: Vec<CmbEntry>,
+    #[serde(default)]
+    survey: Vec<SurveyEntry>,
+    #[serde(default)]
+    output: OutputOptions,
+}
+
+/// A resolved scenario.
+#[derive(Debug, Clone)]
+pub struct Scenario {
+    /// Label.
+    pub name: String,
+    /// Where it came from.
+    pub source: String,
+    /// The cosmology.
+    pub cosmology: Cosmology,
+    /// CMB experiments.
+    pub experiments: Vec<Experiment>,
+    /// Surveys.
+    pub surveys: Vec<Survey>,
+    /// Shapes.
+    pub shapes: Vec<Shape>,
+    /// l_max grid (increasing).
+    pub lmax: Vec<usize>,
+    /// k_max grid in h/Mpc (increasing).
+    pub kmax_h_mpc: Vec<f64>,
+    /// CMB field sets.
+    pub fields: Vec<FieldSet>,
+    /// Survey probes.
+    pub probes: Vec<Probe>,
+    /// Transfer model.
+    pub transfer: TransferChoice,
+    /// Shell width override in Mpc (shell model).
+    pub shell_width_mpc: Option<f64>,
+    /// Diffusion damping on (shell model).
+    pub damping: bool,
+    /// Output options.
+    pub output: OutputOptions,
+}
+
+/// Where referenced files come from.
+pub trait FileResolver {
+    /// Reads a file named in the scenario.
+    ///
+    /// # Errors
+    /// I/O errors naming the file.
+    fn read(&self, name: &str) -> Result<Source>;
+}
+
+/// Files relative to a folder on disk.
+pub struct DiskResolver(pub PathBuf);
+
+impl FileResolver for DiskResolver {
+    fn read(&self, name: &str) -> Result<Source> {
+        Source::read(&self.0.join(name))
+    }
+}
+
+/// Files compiled into the binary (the demo scenario).
+pub struct EmbeddedResolver;
+
+/// The embedded demo scenario and the files it names.
+pub const DEMO_FILES: [(&str, &str); 5] = [
+    (
+        "scenario_demo.toml",
+        include_str!("../surveys/scenario_demo.toml"),
+    ),
+    (
+        "cmb_satellite.toml",
+        include_str!("../surveys/cmb_satellite.toml"),
+    ),
+    (
+        "cmb_ground.toml",
+        include_str!("../surveys/cmb_ground.toml"),
+    ),
+    (
+        "survey_wide_spectro.toml",
+        include_str!("../surveys/survey_wide_spectro.toml"),
+    ),
+    (
+        "survey_deep_photo.toml",
+        include_str!("../surveys/survey_deep_photo.toml"),
+    ),
+];
+
+impl FileResolver for EmbeddedResolver {
+    fn read(&self, name: &str) -> Result<Source> {
+        DEMO_FILES
+            .iter()
+            .find(|(n, _)| *n == name)
+            .map(|(n, t)| Source::from_text(&format!("(embedded) surveys/{n}"), t))
+            .ok_or_else(|| Error::BadField {
+                at: Location::Builtin,
+                field: "file".into(),
+                message: format!("the embedded demo has no file `{name}`"),
+            })
+    }
+}
+
+/// Loads a scenario file from disk.
+///
+/// # Errors
+/// Located input errors in the scenario or any file it names.
+pub fn load_scenario(path: &Path) -> Result<Scenario> {
+    let src = Source::read(path)?;
+    let dir = path.parent().map(Path::to_path_buf).unwrap_or_default();
+    resolve_scenario(&src, &DiskResolver(dir))
+}
+
+/// The embedded demo scenario.
+///
+/// # Errors
+/// Never for the shipped files (tested).
+pub fn demo_scenario() -> Result<Scenario> {
+    let src = EmbeddedResolver.read("scenario_demo.toml")?;
+    resolve_scenario(&src, &EmbeddedResolver)
+}
+
+/// Resolves a scenario's text.
+///
+/// # Errors
+/// Located input errors.
+pub fn resolve_scenario(src: &Source, files: &dyn FileResolver) -> Result<Scenario> {
+    let f: ScenarioFile = parse_toml(src)?;
+    let t = &f.scenario;
+    let cosmology = match &f.cosmology {
+        Some(c) => c.resolve(src)?,
+        None => Cosmology::planck2018(),
+    };
+    let bg = Background::new(&cosmology);
+    let growth = Growth::new(&cosmology);
+    let whole = Location::WholeFile(src.path().to_path_buf());
+    let flag_at =
+        |s: &Option<Spanned<Vec<String>>>| s.as_ref().map_or(whole.clone(), |v| src.at(v));
+    let shapes: Vec<Shape> = match &t.shapes {
+        Some(v) => v
+            .get_ref()
+            .iter()
+            .map(|s| Shape::parse(s, src.at(v)))
+            .collect::<Result<_>>()?,
+        None => vec![Shape::Local, Shape::Equilateral, Shape::Orthogonal],
+    };
+    if shapes.is_empty() {
+        return Err(Error::BadField {
+            at: flag_at(&t.shapes),
+            field: "shapes".into(),
+            message: "list at least one shape".into(),
+        });
+    }
+    let mut lmax: Vec<usize> = match &t.lmax {
+        Some(v) => {
+            let mut out = Vec::new();
+            for &l in v.get_ref() {
+                if !(10..=5000).contains(&l) {
+                    return Err(Error::out_of_range(
+                        src.at(v),
+                        "lmax",
+                        l as f64,
+                        "10 <= lmax <= 5000",
+                    ));
+                }
+                out.push(l as usize);
+            }
+            out
+        }
+        None => vec![500, 1000, 1500, 2000, 2500],
+    };
+    lmax.sort_unstable();
+    lmax.dedup();
+    let mut kmax: Vec<f64> = match &t.kmax_h_mpc {
+        Some(v) => {
+            for &k in v.get_ref() {
+                if !(k.is_finite() && (1e-3..=5.0).contains(&k)) {
+                    return Err(Error::out_of_range(
+                        src.at(v),
+                        "kmax_h_mpc",
+                        k,
+                        "1e-3 <= kmax_h_mpc <= 5",
+                    ));
+                }
+            }
+            v.get_ref().clone()
+        }
+        None => vec![0.05, 0.1, 0.15, 0.2],
+    };
+    kmax.sort_by(f64::total_cmp);
+    kmax.dedup();
+    if lmax.is_empty() || kmax.is_empty() {
+        return Err(Error::BadField {
+            at: whole,
+            field: "lmax".into(),
+            message: "the l_max and k_max grids need at least one value each".into(),
+        });
+    }
+    let fields = match &t.fields {
+        Some(v) => v
+            .get_ref()
+            .iter()
+            .map(|s| {
+                FieldSet::parse(s).ok_or_else(|| Error::BadField {
+                    at: src.at(v),
+                    field: "fields".into(),
+                    message: format!("unknown field set `{s}`; use T, E or T+E"),
+                })
+            })
+            .collect::<Result<Vec<_>>>()?,
+        None => vec![FieldSet::T, FieldSet::E, FieldSet::TE],
+    };
+    let probes = match &t.probes {
+        Some(v) => v
+            .get_ref()
+            .iter()
+            .map(|s| {
+                Probe::parse(s).ok_or_else(|| Error::BadField {
+                    at: src.at(v),
+                    field: "probes".into(),
+                    message: format!("unknown probe `{s}`; use P, B or P+B"),
+                })
+            })
+            .collect::<Result<Vec<_>>>()?,
+        None => vec![Probe::P, Probe::B, Probe::PB],
+    };
+    let shell_width_mpc = match &t.shell_width_mpc {
+        Some(v) => {
+            let x = *v.get_ref();
+            if !(x.is_finite() && (0.0..=500.0).contains(&x)) {
+                return Err(Error::out_of_range(
+                    src.at(v),
+                    "shell_width_mpc",
+                    x,
+                    "0 <= shell_width_mpc <= 500",
+                ));
+            }
+            Some(x)
+        }
+        None => None,
+    };
+    let mut experiments = Vec::new();
+    for c in &f.cmb {
+        match (&c.file, c.ideal) {
+            (Some(_), true) | (None, false) => {
+                return Err(Error::BadField {
+                    at: whole.clone(),
+                    field: "cmb".into(),
+                    message: "each [[cmb]] needs either `file = \"...\"` or `ideal = true`".into(),
+                });
+            }
+            (None, true) => experiments.push(Experiment::ideal(*lmax.last().unwrap_or(&3000))),
+            (Some(fname), false) => {
+                let s = files
+                    .read(fname.get_ref())
+                    .map_err(|e| relocate(e, src.at(fname)))?;
+                let ef: ExperimentFile = parse_toml(&s)?;
+                experiments.push(ef.experiment.resolve(&s)?);
+            }
+        }
+    }
+    let mut surveys = Vec::new();
+    for s in &f.survey {
+        let text = files
+            .read(s.file.get_ref())
+            .map_err(|e| relocate(e, src.at(&s.file)))?;
+        let sf: SurveyFile = parse_toml(&text)?;
+        surveys.push(sf.survey.resolve(&text, &bg, &growth)?);
+    }
+    if experiments.is_empty() && surveys.is_empty() {
+        return Err(Error::BadField {
+            at: whole,
+            field: "cmb".into(),
+            message: "the scenario names no [[cmb]] experiment and no [[survey]]".into(),
+        });
+    }
+    Ok(Scenario {
+        name: t
+            .name
+            .clone()
+            .unwrap_or_else(|| src.path().display().to_string()),
+        source: src.path().display().to_string(),
+        cosmology,
+        experiments,
+        surveys,
+        shapes,
+        lmax,
+        kmax_h_mpc: kmax,
+        fields,
+        probes,
+        transfer: t.transfer.unwrap_or(TransferChoice::Shell),
+        shell_width_mpc,
+        damping: t.damping,
+        output: f.output,
+    })
+}
+
+/// A missing referenced file is reported at the line that names it.
+fn relocate(e: Error, at: Location) -> Error {
+    match e {
+        Error::Io { path, source } => Error::BadField {
+            at,
+            field: "file".into(),
+            message: format!("cannot read {}: {source}", path.display()),
+        },
+        other => other,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn demo_scenario_resolves() {
+        let s = demo_scenario().unwrap();
+        assert!(!s.experiments.is_empty() && !s.surveys.is_empty());
+        assert!(s.lmax.windows(2).all(|w| w[0] < w[1]));
+    }
+
+    #[test]
+    fn missing_file_names_the_line() {
+        let src = Source::from_text(
+            "s.toml",
+            "[scenario]\nname = \"x\"\n\n[[survey]]\nfile = \"nope.toml\"\n",
+        );
+        let e = resolve_scenario(&src, &DiskResolver(PathBuf::from("/nonexistent"))).unwrap_err();
+        assert!(e.to_string().contains("s.toml:5"), "{e}");
+    }
+}
