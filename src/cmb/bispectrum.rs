@@ -107,8 +107,8 @@ pub struct BispectrumPlan {
     /// Terms per shape: (coefficient, exponent indices for the three legs).
     terms: Vec<Vec<(f64, [usize; 3])>>,
     fields: Vec<Field>,
-    /// X[e][f] is an (lmax+1) x n_r row-major matrix.
-    x: Vec<Vec<Vec<f64>>>,
+    /// X[e][f] is an (lmax+1) x n_r row-major matrix (shared between experiments).
+    x: std::sync::Arc<Vec<Vec<Vec<f64>>>>,
     /// Inverse covariance per field set: cinv[fs][l] as [TT, TE, EE] (in the table's
     /// field indices; unused entries zero).
     cinv: Vec<Vec<[f64; 3]>>,
@@ -196,50 +196,37 @@ impl BispectrumPlan {
                 }
             }
         }
-        // Covariances.
-        let it = tr.field_index(Field::T);
-        let ie = tr.field_index(Field::E);
-        let exp = inp.experiment;
-        let cl = |a: Option<usize>, b: Option<usize>| match (a, b) {
-            (Some(a), Some(b)) => tr.cl(&prim, a, b),
-            _ => vec![0.0; tr.lmax() + 1],
-        };
-        let (ctt, cte, cee) = (cl(it, it), cl(it, ie), cl(ie, ie));
-        let mut cinv = Vec::new();
-        for &fs in inp.field_sets {
-            let mut v = vec![[0.0; 3]; nl];
-            for (l, c) in v.iter_mut().enumerate() {
-                if l < exp.l_min.max(2) {
-                    continue;
-                }
-                let use_t = it.is_some() && l <= exp.lmax_t && fs != FieldSet::E;
-                let use_e = ie.is_some() && l <= exp.lmax_e && fs != FieldSet::T;
-                let tt = ctt[l] + exp.noise(l, false, inp.t_cmb_k);
-                let ee = cee[l] + exp.noise(l, true, inp.t_cmb_k);
-                match (use_t, use_e) {
-                    (true, true) => {
-                        let det = tt * ee - cte[l] * cte[l];
-                        *c = [ee / det, -cte[l] / det, tt / det];
-                    }
-                    (true, false) => *c = [1.0 / tt, 0.0, 0.0],
-                    (false, true) => *c = [0.0, 0.0, 1.0 / ee],
-                    (false, false) => {}
-                }
-            }
-            cinv.push(v);
-        }
+        let cinv = inverse_covariances(tr, &prim, inp.experiment, inp.t_cmb_k, inp.field_sets, lmax);
         Self {
             lmax,
             n_r,
             exponents,
             terms,
             fields,
-            x,
+            x: std::sync::Arc::new(x),
             cinv,
             field_sets: inp.field_sets.to_vec(),
             radial_w: inp.radial.w.clone(),
-            f_sky: exp.f_sky,
+            f_sky: inp.experiment.f_sky,
             shape_names: inp.shapes.iter().map(|s| s.name()).collect(),
+        }
+    }
+
+    /// The same radial functions with another experiment's noise, sky fraction and
+    /// multipole ranges (the expensive X^{p}_l(r) are shared, not recomputed).
+    pub fn with_experiment(&self, tr: &TransferTable, prim: &Primordial, exp: &Experiment, t_cmb_k: f64) -> Self {
+        Self {
+            cinv: inverse_covariances(tr, prim, exp, t_cmb_k, &self.field_sets, self.lmax),
+            f_sky: exp.f_sky,
+            x: std::sync::Arc::clone(&self.x),
+            exponents: self.exponents.clone(),
+            terms: self.terms.clone(),
+            fields: self.fields.clone(),
+            field_sets: self.field_sets.clone(),
+            radial_w: self.radial_w.clone(),
+            shape_names: self.shape_names.clone(),
+            lmax: self.lmax,
+            n_r: self.n_r,
         }
     }
 
@@ -284,6 +271,52 @@ impl BispectrumPlan {
     pub fn terms(&self) -> &[Vec<(f64, [usize; 3])>] {
         &self.terms
     }
+}
+
+
+/// Inverse covariance [TT, TE, EE] per field set and l (zero outside the experiment's
+/// ranges): C = C_l (from the transfer table) + N_l (the experiment's noise).
+fn inverse_covariances(
+    tr: &TransferTable,
+    prim: &Primordial,
+    exp: &Experiment,
+    t_cmb_k: f64,
+    field_sets: &[FieldSet],
+    lmax: usize,
+) -> Vec<Vec<[f64; 3]>> {
+    let nl = lmax + 1;
+    let prim = *prim;
+    let it = tr.field_index(Field::T);
+    let ie = tr.field_index(Field::E);
+    let cl = |a: Option<usize>, b: Option<usize>| match (a, b) {
+        (Some(a), Some(b)) => tr.cl(&prim, a, b),
+        _ => vec![0.0; tr.lmax() + 1],
+    };
+    let (ctt, cte, cee) = (cl(it, it), cl(it, ie), cl(ie, ie));
+    let mut cinv = Vec::new();
+    for &fs in field_sets {
+        let mut v = vec![[0.0; 3]; nl];
+        for (l, c) in v.iter_mut().enumerate() {
+            if l < exp.l_min.max(2) {
+                continue;
+            }
+            let use_t = it.is_some() && l <= exp.lmax_t && fs != FieldSet::E;
+            let use_e = ie.is_some() && l <= exp.lmax_e && fs != FieldSet::T;
+            let tt = ctt[l] + exp.noise(l, false, t_cmb_k);
+            let ee = cee[l] + exp.noise(l, true, t_cmb_k);
+            match (use_t, use_e) {
+                (true, true) => {
+                    let det = tt * ee - cte[l] * cte[l];
+                    *c = [ee / det, -cte[l] / det, tt / det];
+                }
+                (true, false) => *c = [1.0 / tt, 0.0, 0.0],
+                (false, true) => *c = [0.0, 0.0, 1.0 / ee],
+                (false, false) => {}
+            }
+        }
+        cinv.push(v);
+    }
+    cinv
 }
 
 /// Runs the fast engine.
