@@ -40,6 +40,50 @@ pub enum Command {
     Background(BackgroundArgs),
     /// 3D survey forecast: sigma(f_NL) from P, B and P+B versus k_max.
     Survey(SurveyArgs),
+    /// CMB bispectrum forecast: sigma(f_NL) from T, E and T+E versus l_max.
+    Cmb(CmbArgs),
+    /// Run a grid of scenarios from a plan file (parallel, resumable, shardable).
+    Batch(BatchArgs),
+    /// Merge the outputs of sharded batch runs into one combined table.
+    Merge(MergeArgs),
+    /// Validate input files (scenario, survey, experiment, cosmology, plan).
+    Check(CheckArgs),
+}
+
+/// `ngreach batch`.
+#[derive(Debug, Args)]
+pub struct BatchArgs {
+    /// Plan file (TOML with a [plan] table).
+    #[arg(value_name = "PLAN")]
+    pub plan: PathBuf,
+    /// Folder for the scenario folders and the combined table.
+    #[arg(long, value_name = "DIR", default_value = "ngreach-batch")]
+    pub out: PathBuf,
+    /// Run only shard I of N (0-based), e.g. for array job I of a cluster scheduler.
+    #[arg(long, value_name = "I/N")]
+    pub shard: Option<String>,
+    /// Worker threads.
+    #[arg(long, value_name = "N")]
+    pub threads: Option<usize>,
+}
+
+/// `ngreach merge`.
+#[derive(Debug, Args)]
+pub struct MergeArgs {
+    /// Output folder of the merged batch.
+    #[arg(value_name = "OUT")]
+    pub out: PathBuf,
+    /// Shard output folders to merge into OUT (none: rebuild OUT's combined table).
+    #[arg(value_name = "SHARD_DIR")]
+    pub parts: Vec<PathBuf>,
+}
+
+/// `ngreach check`.
+#[derive(Debug, Args)]
+pub struct CheckArgs {
+    /// Files to validate.
+    #[arg(value_name = "FILE", required = true)]
+    pub files: Vec<PathBuf>,
 }
 
 /// `ngreach run`.
@@ -51,9 +95,18 @@ pub struct RunArgs {
     /// Folder for the output files.
     #[arg(long, value_name = "DIR", default_value = "ngreach-out")]
     pub out: PathBuf,
-    /// Shared options.
-    #[command(flatten)]
-    pub common: CommonArgs,
+    /// No progress line on stderr.
+    #[arg(long, short)]
+    pub quiet: bool,
+    /// Worker threads (1 runs the serial path).
+    #[arg(long, value_name = "N")]
+    pub threads: Option<usize>,
+    /// Override the scenario's cosmology with a [cosmology] file.
+    #[arg(long, value_name = "FILE")]
+    pub cosmology: Option<PathBuf>,
+    /// Format of the terminal summary: table (default) or json (the summary.json object).
+    #[arg(long, value_enum, default_value_t = Format::Table)]
+    pub format: Format,
 }
 
 /// `ngreach background`.
@@ -132,6 +185,54 @@ pub struct SurveyArgs {
         default_value = "local,equilateral,orthogonal"
     )]
     pub shapes: Vec<String>,
+    /// Worker threads (1 runs the serial path).
+    #[arg(long, value_name = "N")]
+    pub threads: Option<usize>,
+    /// Shared options.
+    #[command(flatten)]
+    pub common: CommonArgs,
+}
+
+/// `ngreach cmb`.
+#[derive(Debug, Args)]
+pub struct CmbArgs {
+    /// CMB experiment file (TOML with an [experiment] table).
+    #[arg(long, value_name = "FILE", conflicts_with = "ideal")]
+    pub experiment: Option<PathBuf>,
+    /// The ideal experiment: no noise, full sky (the default without --experiment).
+    #[arg(long)]
+    pub ideal: bool,
+    /// Transfer functions: the finite-thickness shell model, or the full Boltzmann solution.
+    #[arg(long, value_enum, default_value_t = crate::scenario::TransferChoice::Shell)]
+    pub transfer: crate::scenario::TransferChoice,
+    /// Shell model: Gaussian width of the last-scattering shell in Mpc (0 = zero thickness).
+    #[arg(long, value_name = "MPC")]
+    pub shell_width: Option<f64>,
+    /// Shell model: switch diffusion damping off.
+    #[arg(long)]
+    pub no_damping: bool,
+    /// l_max values, comma separated (default: 250,500,1000,1500,2000 capped at the experiment's l_max).
+    #[arg(long, value_name = "LIST", value_delimiter = ',')]
+    pub lmax: Option<Vec<usize>>,
+    /// Field sets: T, E, T+E.
+    #[arg(
+        long,
+        value_name = "LIST",
+        value_delimiter = ',',
+        default_value = "T,E,T+E"
+    )]
+    pub fields: Vec<String>,
+    /// Shapes: local, equilateral, orthogonal, delta=D, mass=M (m/H).
+    #[arg(
+        long,
+        value_name = "LIST",
+        value_delimiter = ',',
+        default_value = "local,equilateral,orthogonal"
+    )]
+    pub shapes: Vec<String>,
+    /// Override the experiment's sky fraction.
+    #[arg(long, value_name = "F", allow_hyphen_values = true)]
+    pub fsky: Option<f64>,
     /// Worker threads (1 runs the serial path).
     #[arg(long, value_name = "N")]
     pub threads: Option<usize>,

@@ -19,6 +19,7 @@
 #![deny(unsafe_code)] // one audited exception: the dgemm call in cmb::bispectrum
 #![warn(missing_docs)]
 
+pub mod batch;
 pub mod cli;
 pub mod cmb;
 pub mod combine;
@@ -29,6 +30,7 @@ pub mod error;
 pub mod fisher;
 pub mod input;
 pub mod numerics;
+pub mod pipeline;
 pub mod report;
 pub mod scenario;
 pub mod shapes;

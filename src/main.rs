@@ -67,11 +67,122 @@ fn run(cli: Cli) -> ngreach::Result<String> {
             let (r, _) = commands::survey::survey_report(&survey, &c, &src, &opts)?;
             Ok(r.render(a.common.format))
         }
-        Command::Run(a) => {
+        Command::Cmb(a) => {
+            set_threads(a.threads);
             let (c, src) = commands::resolve_cosmology(a.common.cosmology.as_deref())?;
-            let r = commands::run::run_report(a.scenario.as_deref(), &c, &src)?;
+            let mut exp = match &a.experiment {
+                Some(p) => ngreach::cmb::experiment::load_experiment(p)?,
+                None => ngreach::cmb::experiment::Experiment::ideal(2000),
+            };
+            if let Some(f) = a.fsky {
+                if !(f > 0.0 && f <= 1.0) {
+                    return Err(ngreach::Error::out_of_range(
+                        ngreach::Location::Flag("--fsky".into()),
+                        "fsky",
+                        f,
+                        "0 < fsky <= 1",
+                    ));
+                }
+                exp.f_sky = f;
+            }
+            let lmax = match a.lmax {
+                Some(v) => v,
+                None => {
+                    let top = exp.lmax();
+                    let mut v: Vec<usize> = [250, 500, 1000, 1500, 2000]
+                        .into_iter()
+                        .filter(|&l| l < top)
+                        .collect();
+                    v.push(top);
+                    v
+                }
+            };
+            if a.experiment.is_none() {
+                let top = lmax.iter().copied().max().unwrap_or(2000);
+                exp.lmax_t = top;
+                exp.lmax_e = top;
+            }
+            let opts = commands::cmb::CmbOptions {
+                experiment: exp,
+                transfer: a.transfer,
+                shell_width_mpc: a.shell_width,
+                damping: !a.no_damping,
+                lmax,
+                fields: commands::cmb::parse_fields(&a.fields)?,
+                shapes: commands::survey::parse_shapes(&a.shapes, "--shapes")?,
+                parallel: a.threads != Some(1),
+            };
+            let (r, _) = commands::cmb::cmb_report(&c, &src, &opts)?;
             Ok(r.render(a.common.format))
         }
+        Command::Batch(a) => {
+            set_threads(a.threads);
+            let shard = a
+                .shard
+                .as_deref()
+                .map(ngreach::batch::Shard::parse)
+                .transpose()?;
+            let plan = ngreach::batch::load_plan(&a.plan)?;
+            let settings = ngreach::pipeline::RunSettings {
+                parallel: a.threads != Some(1),
+                ..Default::default()
+            };
+            let r = commands::batch::run_batch(&plan, &a.out, shard, &settings)?;
+            Ok(format!(
+                "batch `{}`: {} scenario(s) computed, {} already complete (skipped), {} left to other shards; combined table of {} scenario(s) in {}/batch_summary.csv\n",
+                plan.name,
+                r.ran.len(),
+                r.skipped.len(),
+                r.other_shards,
+                r.combined,
+                a.out.display()
+            ))
+        }
+        Command::Merge(a) => {
+            let n = commands::batch::merge(&a.out, &a.parts)?;
+            Ok(format!(
+                "merged: combined table of {n} scenario(s) in {}/batch_summary.csv\n",
+                a.out.display()
+            ))
+        }
+        Command::Check(a) => {
+            let mut out = String::new();
+            for f in &a.files {
+                out.push_str(&commands::check::check_file(f)?);
+                out.push('\n');
+            }
+            Ok(out)
+        }
+        Command::Run(a) => {
+            set_threads(a.threads);
+            let mut sc = commands::run::scenario_for(a.scenario.as_deref())?;
+            if let Some(p) = a.cosmology.as_deref() {
+                sc.cosmology = ngreach::cosmology::load_cosmology_file(p)?;
+            }
+            let settings = ngreach::pipeline::RunSettings {
+                parallel: a.threads != Some(1),
+                ..Default::default()
+            };
+            let (text, result) = commands::run::run_to_dir(&sc, &a.out, &settings, a.quiet)?;
+            Ok(match a.format {
+                ngreach::report::Format::Json => {
+                    serde_json::to_string_pretty(&ngreach::report::outputs::summary_json(&result))
+                        .unwrap_or_default()
+                        + "\n"
+                }
+                _ => text,
+            })
+        }
+    }
+}
+
+/// Sizes the global thread pool (`--threads`); without it rayon uses every core.
+fn set_threads(n: Option<usize>) {
+    if let Some(n) = n {
+        // Only the first call can size the pool; later calls are harmless no-ops.
+        let _ = rayon::ThreadPoolBuilder::new()
+            .num_threads(n.max(1))
+            .build_global();
     }
 }
 

@@ -71,12 +71,17 @@ struct CmbEntry {
     file: Option<Spanned<String>>,
     #[serde(default)]
     ideal: bool,
+    /// Overrides applied to the experiment table: dotted paths to values.
+    set: Option<toml::Table>,
 }
 
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 struct SurveyEntry {
     file: Spanned<String>,
+    /// Overrides applied to the survey table: dotted paths to values
+    /// (e.g. `set = { area_deg2 = 5000.0, "tracer.0.p" = 1.6 }`).
+    set: Option<toml::Table>,
 }
 
 /// Output options.
@@ -358,6 +363,7 @@ pub fn resolve_scenario(src: &Source, files: &dyn FileResolver) -> Result<Scenar
                 let s = files
                     .read(fname.get_ref())
                     .map_err(|e| relocate(e, src.at(fname)))?;
+                let s = with_overrides(s, "experiment", c.set.as_ref(), src.at(fname))?;
                 let ef: ExperimentFile = parse_toml(&s)?;
                 experiments.push(ef.experiment.resolve(&s)?);
             }
@@ -368,6 +374,7 @@ pub fn resolve_scenario(src: &Source, files: &dyn FileResolver) -> Result<Scenar
         let text = files
             .read(s.file.get_ref())
             .map_err(|e| relocate(e, src.at(&s.file)))?;
+        let text = with_overrides(text, "survey", s.set.as_ref(), src.at(&s.file))?;
         let sf: SurveyFile = parse_toml(&text)?;
         surveys.push(sf.survey.resolve(&text, &bg, &growth)?);
     }
@@ -399,6 +406,110 @@ pub fn resolve_scenario(src: &Source, files: &dyn FileResolver) -> Result<Scenar
     })
 }
 
+/// Applies `set` overrides (dotted paths below the file's `[top]` table) and returns the
+/// modified file; without overrides the file is returned as it is (exact positions).
+fn with_overrides(
+    src: Source,
+    top: &str,
+    set: Option<&toml::Table>,
+    at: Location,
+) -> Result<Source> {
+    let Some(set) = set.filter(|t| !t.is_empty()) else {
+        return Ok(src);
+    };
+    let mut doc: toml::Table = toml::from_str(src.text()).map_err(|e| Error::Syntax {
+        at: Location::WholeFile(src.path().to_path_buf()),
+        message: e.message().to_string(),
+    })?;
+    let table = doc
+        .get_mut(top)
+        .and_then(|v| v.as_table_mut())
+        .ok_or_else(|| Error::BadField {
+            at: Location::WholeFile(src.path().to_path_buf()),
+            field: top.into(),
+            message: format!("no [{top}] table"),
+        })?;
+    for (path, value) in set {
+        set_path(table, path, value.clone()).map_err(|m| Error::BadField {
+            at: at.clone(),
+            field: format!("set.{path}"),
+            message: m,
+        })?;
+    }
+    let mut wrapped = toml::Table::new();
+    wrapped.insert(top.into(), toml::Value::Table(table.clone()));
+    for (k, v) in doc {
+        if k != top {
+            wrapped.insert(k, v);
+        }
+    }
+    let text = toml::to_string(&wrapped).map_err(|e| Error::Numerical {
+        stage: "applying overrides",
+        message: e.to_string(),
+    })?;
+    Ok(Source::from_text(
+        &format!("{} (with overrides)", src.path().display()),
+        &text,
+    ))
+}
+
+/// Sets `value` at a dotted path (`a.b`, `tracer.0.p`) inside a TOML table; missing
+/// tables on the way are created, list indices must exist.
+///
+/// # Errors
+/// A message when the path runs through something that is not a table or list.
+pub fn set_path(
+    table: &mut toml::Table,
+    path: &str,
+    value: toml::Value,
+) -> std::result::Result<(), String> {
+    let segs: Vec<&str> = path.split('.').collect();
+    let Some((first, rest)) = segs.split_first() else {
+        return Err("empty path".into());
+    };
+    if rest.is_empty() {
+        table.insert((*first).to_string(), value);
+        return Ok(());
+    }
+    let next = table
+        .entry((*first).to_string())
+        .or_insert_with(|| toml::Value::Table(toml::Table::new()));
+    set_in_value(next, rest, value)
+}
+
+fn set_in_value(
+    cur: &mut toml::Value,
+    segs: &[&str],
+    value: toml::Value,
+) -> std::result::Result<(), String> {
+    let Some((seg, rest)) = segs.split_first() else {
+        *cur = value;
+        return Ok(());
+    };
+    if let Ok(idx) = seg.parse::<usize>() {
+        let arr = cur
+            .as_array_mut()
+            .ok_or_else(|| format!("`{seg}` indexes something that is not a list"))?;
+        let n = arr.len();
+        let el = arr
+            .get_mut(idx)
+            .ok_or_else(|| format!("index {idx} is past the end of a list of {n}"))?;
+        set_in_value(el, rest, value)
+    } else {
+        let t = cur
+            .as_table_mut()
+            .ok_or_else(|| format!("`{seg}` is below something that is not a table"))?;
+        if rest.is_empty() {
+            t.insert((*seg).to_string(), value);
+            return Ok(());
+        }
+        let next = t
+            .entry((*seg).to_string())
+            .or_insert_with(|| toml::Value::Table(toml::Table::new()));
+        set_in_value(next, rest, value)
+    }
+}
+
 /// A missing referenced file is reported at the line that names it.
 fn relocate(e: Error, at: Location) -> Error {
     match e {
@@ -420,6 +531,19 @@ mod tests {
         let s = demo_scenario().unwrap();
         assert!(!s.experiments.is_empty() && !s.surveys.is_empty());
         assert!(s.lmax.windows(2).all(|w| w[0] < w[1]));
+    }
+
+    #[test]
+    fn dotted_paths() {
+        let mut t: toml::Table = toml::from_str("a = 1\n[b]\nc = [1, 2]\n[[d]]\ne = 3\n").unwrap();
+        set_path(&mut t, "b.c.1", toml::Value::Integer(5)).unwrap();
+        set_path(&mut t, "d.0.e", toml::Value::Integer(7)).unwrap();
+        set_path(&mut t, "x.y", toml::Value::Boolean(true)).unwrap();
+        assert_eq!(t["b"]["c"][1].as_integer(), Some(5));
+        assert_eq!(t["d"][0]["e"].as_integer(), Some(7));
+        assert_eq!(t["x"]["y"].as_bool(), Some(true));
+        assert!(set_path(&mut t, "b.c.9", toml::Value::Integer(1)).is_err());
+        assert!(set_path(&mut t, "a.z", toml::Value::Integer(1)).is_err());
     }
 
     #[test]

@@ -196,7 +196,8 @@ impl BispectrumPlan {
                 }
             }
         }
-        let cinv = inverse_covariances(tr, &prim, inp.experiment, inp.t_cmb_k, inp.field_sets, lmax);
+        let cinv =
+            inverse_covariances(tr, &prim, inp.experiment, inp.t_cmb_k, inp.field_sets, lmax);
         Self {
             lmax,
             n_r,
@@ -214,7 +215,13 @@ impl BispectrumPlan {
 
     /// The same radial functions with another experiment's noise, sky fraction and
     /// multipole ranges (the expensive X^{p}_l(r) are shared, not recomputed).
-    pub fn with_experiment(&self, tr: &TransferTable, prim: &Primordial, exp: &Experiment, t_cmb_k: f64) -> Self {
+    pub fn with_experiment(
+        &self,
+        tr: &TransferTable,
+        prim: &Primordial,
+        exp: &Experiment,
+        t_cmb_k: f64,
+    ) -> Self {
         Self {
             cinv: inverse_covariances(tr, prim, exp, t_cmb_k, &self.field_sets, self.lmax),
             f_sky: exp.f_sky,
@@ -273,7 +280,6 @@ impl BispectrumPlan {
     }
 }
 
-
 /// Inverse covariance [TT, TE, EE] per field set and l (zero outside the experiment's
 /// ranges): C = C_l (from the transfer table) + N_l (the experiment's noise).
 fn inverse_covariances(
@@ -318,6 +324,14 @@ fn inverse_covariances(
     }
     cinv
 }
+
+/// Multipoles per matrix-product block.
+const SUB: usize = 64;
+
+/// Radial nodes where every radial function at a given l is below this fraction of its
+/// peak at that l are left out of that l's products (a relative truncation far below
+/// the quadrature errors; it makes the high-l blocks work on the shell only).
+const ACTIVE_TOL: f64 = 1e-5;
 
 /// Runs the fast engine.
 pub fn cmb_fisher(inp: &CmbFisherInput<'_>) -> CmbForecast {
@@ -379,11 +393,33 @@ pub fn cmb_fisher_with_plan(
         (pairs.iter().position(|&p| p == (lo, hi)).unwrap_or(0), tr)
     };
     // Term pairs per shape pair (i <= j): (c_t c_u, [(pair, transposed); 3]).
+    // Every shape's term list is closed under permutations of the legs (all permutations
+    // are written out) with permutation-invariant coefficients, and the unrestricted l
+    // sum is invariant under permuting the legs of both terms at once. So the sum over
+    // t runs over one representative per permutation orbit, weighted by the orbit size.
+    let reps: Vec<Vec<(f64, [usize; 3])>> = plan
+        .terms
+        .iter()
+        .map(|ts| {
+            let mut seen: Vec<([usize; 3], usize, f64, [usize; 3])> = Vec::new();
+            for &(c, e) in ts {
+                let mut key = e;
+                key.sort_unstable();
+                match seen.iter_mut().find(|x| x.0 == key) {
+                    Some(x) => x.1 += 1,
+                    None => seen.push((key, 1, c, e)),
+                }
+            }
+            seen.into_iter()
+                .map(|(_, n, c, e)| (c * n as f64, e))
+                .collect()
+        })
+        .collect();
     let mut term_pairs: Vec<TermPairs> = Vec::new();
-    for i in 0..ns {
+    for (i, rep) in reps.iter().enumerate() {
         for j in i..ns {
             let mut v = Vec::new();
-            for &(ct, et) in &plan.terms[i] {
+            for &(ct, et) in rep {
                 for &(cu, eu) in &plan.terms[j] {
                     v.push((
                         ct * cu,
@@ -398,7 +434,40 @@ pub fn cmb_fisher_with_plan(
             term_pairs.push((i, j, v));
         }
     }
-    let max_block = edges.windows(2).map(|w| w[1] - w[0]).max().unwrap_or(1);
+    let max_block = SUB;
+    // Active radial range per l: the nodes where some radial function exceeds
+    // ACTIVE_TOL of its largest value at that l (at high l the functions are confined
+    // to the last-scattering shell; far nodes only matter at low l).
+    let active: Vec<(usize, usize)> = (0..=lmax)
+        .map(|l| {
+            let v: Vec<f64> = (0..n_r)
+                .map(|ir| {
+                    plan.x
+                        .iter()
+                        .flat_map(|xe| xe.iter().map(move |xf| xf[l * n_r + ir].abs()))
+                        .fold(0.0, f64::max)
+                })
+                .collect();
+            let peak = v.iter().copied().fold(0.0, f64::max);
+            if peak == 0.0 {
+                return (0, 0);
+            }
+            let lo = v.iter().position(|&x| x >= ACTIVE_TOL * peak).unwrap_or(0);
+            let hi = v
+                .iter()
+                .rposition(|&x| x >= ACTIVE_TOL * peak)
+                .map_or(0, |i| i + 1);
+            (lo, hi)
+        })
+        .collect();
+    if std::env::var_os("NGREACH_DEBUG_ACTIVE").is_some() {
+        for l in [2, 10, 50, 100, 300, 600, 1000, 2000]
+            .iter()
+            .filter(|&&l| l <= lmax)
+        {
+            eprintln!("active radial range at l = {l}: {:?} of {n_r}", active[*l]);
+        }
+    }
     let w_r = &plan.radial_w;
     // One mu node: returns F[fs][m][i][j] contributions (flattened).
     let per_mu = |(mu, wmu): (f64, f64), acc: &mut Vec<f64>, scratch: &mut Scratch| {
@@ -410,31 +479,44 @@ pub fn cmb_fisher_with_plan(
                 .for_each(|v| v.iter_mut().for_each(|x| *x = 0.0));
             for (m, w) in edges.windows(2).enumerate() {
                 let (lo, hi) = (w[0] + 1, w[1]);
-                if hi >= lo {
-                    let nb = hi - lo + 1;
-                    for (ip, &(a, b)) in pairs.iter().enumerate() {
-                        for (xaf, zbf) in plan.x[a].iter().zip(&z[fs][b]) {
-                            // A = diag((2l+1) P_l) X[a][f][lo..=hi], (nb x n_r).
-                            let xa = &xaf[lo * n_r..(hi + 1) * n_r];
-                            let za = &zbf[lo * n_r..(hi + 1) * n_r];
-                            let asc = &mut scratch.a[..nb * n_r];
-                            for (li, l) in (lo..=hi).enumerate() {
-                                let fac = (2 * l + 1) as f64 * scratch.pl[l];
-                                for ir in 0..n_r {
-                                    asc[li * n_r + ir] = fac * xa[li * n_r + ir];
+                // Sub-blocks of at most SUB multipoles, each on the radial range where
+                // its radial functions are not negligible.
+                let mut l0 = lo;
+                while l0 <= hi {
+                    let l1 = (l0 + SUB - 1).min(hi);
+                    let nb = l1 - l0 + 1;
+                    let (r0, r1) = (0..nb).fold((n_r, 0), |(a, b), i| {
+                        (a.min(active[l0 + i].0), b.max(active[l0 + i].1))
+                    });
+                    if r1 > r0 {
+                        let w_sub = r1 - r0;
+                        for (ip, &(a, b)) in pairs.iter().enumerate() {
+                            for (xaf, zbf) in plan.x[a].iter().zip(&z[fs][b]) {
+                                // A = diag((2l+1) P_l) X[a][f][l0..=l1][r0..r1].
+                                let xa = &xaf[l0 * n_r..(l1 + 1) * n_r];
+                                let za = &zbf[l0 * n_r..(l1 + 1) * n_r];
+                                let asc = &mut scratch.a[..nb * n_r];
+                                for (li, l) in (l0..=l1).enumerate() {
+                                    let fac = (2 * l + 1) as f64 * scratch.pl[l];
+                                    let row = li * n_r;
+                                    for ir in r0..r1 {
+                                        asc[row + ir] = fac * xa[row + ir];
+                                    }
                                 }
+                                // S[r0..r1, r0..r1] += A^T Z.
+                                matrixmultiply_safe::dgemm_at_b_sub(
+                                    w_sub,
+                                    nb,
+                                    n_r,
+                                    r0,
+                                    asc,
+                                    za,
+                                    &mut scratch.s[ip],
+                                );
                             }
-                            // S += A^T Z.
-                            matrixmultiply_safe::dgemm_at_b(
-                                n_r,
-                                nb,
-                                n_r,
-                                asc,
-                                za,
-                                &mut scratch.s[ip],
-                            );
                         }
                     }
+                    l0 = l1 + 1;
                 }
                 // Evaluate the products for this cumulative l_max.
                 for (st, s) in scratch.st.iter_mut().zip(&scratch.s) {
@@ -579,27 +661,37 @@ mod matrixmultiply_safe {
     //! The one place that calls matrixmultiply (its dgemm takes raw pointers).
     #![allow(unsafe_code)]
 
-    /// C (m x n) += A^T B, A is k x m, B is k x n, all row-major and in bounds.
-    pub fn dgemm_at_b(m: usize, k: usize, n: usize, a: &[f64], b: &[f64], c: &mut [f64]) {
-        assert!(a.len() >= k * m && b.len() >= k * n && c.len() >= m * n);
-        // SAFETY: the slices hold at least k*m, k*n and m*n elements (asserted above),
-        // the strides below address exactly those elements, and c does not
-        // alias a or b (distinct borrows).
+    /// C[off.., off..] (w x w, leading dimension ld) += A[.., off..]^T B[.., off..], with
+    /// A and B k x ld row-major.
+    pub fn dgemm_at_b_sub(
+        w: usize,
+        k: usize,
+        ld: usize,
+        off: usize,
+        a: &[f64],
+        b: &[f64],
+        c: &mut [f64],
+    ) {
+        assert!(off + w <= ld && a.len() >= k * ld && b.len() >= k * ld && c.len() >= ld * ld);
+        // SAFETY: element (i, p) of A^T is a[p*ld + off + i] with p < k, i < w, so the
+        // largest index is (k-1)*ld + off + w - 1 < k*ld <= a.len() (likewise b); C's
+        // element (i, j) is c[(off+i)*ld + off + j] < ld*ld <= c.len(); c does not alias
+        // a or b (distinct borrows).
         unsafe {
             matrixmultiply::dgemm(
-                m,
+                w,
                 k,
-                n,
+                w,
                 1.0,
-                a.as_ptr(),
+                a.as_ptr().add(off),
                 1,
-                m as isize,
-                b.as_ptr(),
-                n as isize,
+                ld as isize,
+                b.as_ptr().add(off),
+                ld as isize,
                 1,
                 1.0,
-                c.as_mut_ptr(),
-                n as isize,
+                c.as_mut_ptr().add(off * ld + off),
+                ld as isize,
                 1,
             );
         }

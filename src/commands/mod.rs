@@ -1,6 +1,9 @@
 //! The work behind each subcommand: typed options in, a [`crate::report::Report`] out.
 
 pub mod background;
+pub mod batch;
+pub mod check;
+pub mod cmb;
 pub mod run;
 pub mod survey;
 

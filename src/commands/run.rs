@@ -1,36 +1,90 @@
-//! `ngreach run`: the main job. Until the CMB and survey Fisher engines exist it runs the
-//! stages that do exist on the demo cosmology and says plainly which stages are missing.
+//! `ngreach run`: the main job on a scenario (the embedded demo when none is given):
+//! both engines, the combiner, and every output file.
 
+use std::io::{IsTerminal, Write};
 use std::path::Path;
+use std::time::Instant;
 
-use crate::cosmology::Cosmology;
-use crate::error::{Error, Location, Result};
-use crate::report::Report;
+use crate::error::Result;
+use crate::pipeline::{RunResult, RunSettings, run_scenario};
+use crate::report::outputs::{terminal_summary, write_outputs};
+use crate::scenario::{Scenario, demo_scenario, load_scenario};
 
-/// Stages of the pipeline that are not built yet (listed in the output).
-pub const NOT_BUILT: [&str; 4] = [
-    "CMB bispectrum Fisher engine",
-    "survey Fisher engine",
-    "combiner and crossover k_max",
-    "figures",
-];
+/// Progress on stderr: one self-overwriting line with the stage and the elapsed time,
+/// shown only when stderr is a terminal and `--quiet` is not set. The stage counter is
+/// the number of stages started so far.
+pub struct Progress {
+    enabled: bool,
+    start: Instant,
+    stage: usize,
+}
 
-/// Runs the available stages.
+impl Progress {
+    /// Progress for an interactive run unless `quiet`.
+    pub fn new(quiet: bool) -> Self {
+        Self {
+            enabled: !quiet && std::io::stderr().is_terminal(),
+            start: Instant::now(),
+            stage: 0,
+        }
+    }
+
+    /// Announces a stage.
+    pub fn stage(&mut self, name: &str) {
+        self.stage += 1;
+        if self.enabled {
+            let mut e = std::io::stderr().lock();
+            let _ = write!(
+                e,
+                "\r\x1b[K[{:>6.1} s] stage {}: {name}",
+                self.start.elapsed().as_secs_f64(),
+                self.stage
+            );
+            let _ = e.flush();
+        }
+    }
+
+    /// Clears the line.
+    pub fn finish(&mut self) {
+        if self.enabled {
+            let mut e = std::io::stderr().lock();
+            let _ = write!(e, "\r\x1b[K");
+            let _ = e.flush();
+        }
+    }
+}
+
+/// Loads the scenario (or the demo).
 ///
 /// # Errors
-/// Scenario files are not readable yet; giving one is an input error.
-pub fn run_report(scenario: Option<&Path>, c: &Cosmology, source: &str) -> Result<Report> {
-    if let Some(p) = scenario {
-        return Err(Error::Conflict {
-            at: Location::WholeFile(p.to_path_buf()),
-            message: "scenario files are not supported yet: the combiner is not built; \
-                      run `ngreach run` without a file for the demo"
-                .into(),
-        });
+/// Input errors of the scenario and the files it names.
+pub fn scenario_for(path: Option<&Path>) -> Result<Scenario> {
+    match path {
+        Some(p) => load_scenario(p),
+        None => demo_scenario(),
     }
-    let mut r = super::background::background_report(c, source, &[0.0, 0.5, 1.0, 2.0, 1100.0])?;
-    r.command = "run (demo)".into();
-    r.notes
-        .push(format!("not built yet: {}", NOT_BUILT.join("; ")));
-    Ok(r)
+}
+
+/// Runs a scenario, writes its outputs into `out`, returns the terminal summary.
+///
+/// # Errors
+/// Any stage's failure; I/O errors writing the outputs.
+pub fn run_to_dir(
+    sc: &Scenario,
+    out: &Path,
+    settings: &RunSettings,
+    quiet: bool,
+) -> Result<(String, RunResult)> {
+    let mut progress = Progress::new(quiet);
+    let result = run_scenario(sc, settings, &mut |s| progress.stage(s))?;
+    progress.stage("writing tables and figures");
+    let files = write_outputs(&result, out)?;
+    progress.finish();
+    let mut text = terminal_summary(&result);
+    text.push_str(&format!(
+        "\nwrote {} files to {} (summary.json, CSV tables, table.tex, figures as PNG and SVG)\n",
+        files.len(),
+        out.display()
+    ));
+    Ok((text, result))
 }

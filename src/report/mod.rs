@@ -7,6 +7,7 @@
 //! `inputs`, any top-level summary values, and `rows`.
 
 pub mod figures;
+pub mod outputs;
 
 use serde_json::{Map, Value};
 

@@ -1,0 +1,405 @@
+//! Batch runs: a plan expands a grid over any scenario field, runs the scenarios in
+//! parallel, reuses the expensive CMB pieces between scenarios that share a cosmology
+//! and transfer model, writes one folder per scenario plus a combined table, resumes
+//! (skips scenarios whose `summary.json` exists; every file is written to a temporary
+//! name and renamed), and splits across array jobs (`--shard I/N`, merged afterwards by
+//! `ngreach merge`).
+//!
+//! ```toml
+//! [plan]
+//! name = "area by density"
+//! scenario = "scenario_demo.toml"      # relative to the plan; "demo" for the embedded one
+//!
+//! [[plan.vary]]
+//! path = "survey.0.area_deg2"          # survey N's table, cmb N's table, or
+//! values = [5000.0, 10000.0, 15000.0]  # scenario.*, cosmology.*, cmb.N.file, ...
+//!
+//! [[plan.vary]]
+//! path = "survey.0.tracer.0.nbar_h3_mpc3"
+//! values = [1e-4, 3e-4, 1e-3]
+//! ```
+//! Paths `survey.N.<key>` and `cmb.N.<key>` (other than `file`, `ideal`) go into that
+//! entry's `set` overrides; anything else is set in the scenario document itself.
+
+use std::path::{Path, PathBuf};
+
+use serde::Deserialize;
+use serde_json::{Value, json};
+use toml::Spanned;
+
+use crate::error::{Error, Location, Result};
+use crate::input::{Source, parse_toml};
+use crate::scenario::{
+    DiskResolver, EmbeddedResolver, FileResolver, Scenario, resolve_scenario, set_path,
+};
+
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct VaryTable {
+    path: Spanned<String>,
+    values: Spanned<Vec<toml::Value>>,
+}
+
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct PlanTable {
+    name: Option<String>,
+    scenario: Spanned<String>,
+    #[serde(default)]
+    vary: Vec<VaryTable>,
+}
+
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct PlanFile {
+    plan: PlanTable,
+}
+
+/// One point of the grid.
+#[derive(Debug, Clone)]
+pub struct PlanPoint {
+    /// Index in the full (unsharded) grid.
+    pub index: usize,
+    /// Folder name.
+    pub folder: String,
+    /// (path, value) pairs of this point.
+    pub values: Vec<(String, toml::Value)>,
+    /// The resolved scenario.
+    pub scenario: Scenario,
+}
+
+/// An expanded plan.
+#[derive(Debug, Clone)]
+pub struct Plan {
+    /// Label.
+    pub name: String,
+    /// Grid points in order.
+    pub points: Vec<PlanPoint>,
+}
+
+/// A shard `I/N` (0-based I).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Shard {
+    /// This shard.
+    pub index: usize,
+    /// Number of shards.
+    pub count: usize,
+}
+
+impl Shard {
+    /// Parses `I/N` with 0 <= I < N.
+    ///
+    /// # Errors
+    /// A malformed value.
+    pub fn parse(s: &str) -> Result<Self> {
+        let bad = || Error::BadField {
+            at: Location::Flag("--shard".into()),
+            field: "shard".into(),
+            message: format!("`{s}` is not I/N with 0 <= I < N (for example 0/4)"),
+        };
+        let (a, b) = s.split_once('/').ok_or_else(bad)?;
+        let (index, count): (usize, usize) = (
+            a.trim().parse().map_err(|_| bad())?,
+            b.trim().parse().map_err(|_| bad())?,
+        );
+        if count == 0 || index >= count {
+            return Err(bad());
+        }
+        Ok(Self { index, count })
+    }
+
+    /// Whether grid point `i` belongs to this shard.
+    pub fn owns(&self, i: usize) -> bool {
+        i % self.count == self.index
+    }
+}
+
+/// Reads and expands a plan file.
+///
+/// # Errors
+/// Located input errors in the plan or in any expanded scenario.
+pub fn load_plan(path: &Path) -> Result<Plan> {
+    let src = Source::read(path)?;
+    let pf: PlanFile = parse_toml(&src)?;
+    let dir = path.parent().map(Path::to_path_buf).unwrap_or_default();
+    let base_name = pf.plan.scenario.get_ref().clone();
+    let (base_src, resolver): (Source, Box<dyn FileResolver>) = if base_name == "demo" {
+        (
+            EmbeddedResolver.read("scenario_demo.toml")?,
+            Box::new(EmbeddedResolver),
+        )
+    } else {
+        let p: PathBuf = dir.join(&base_name);
+        let s = Source::read(&p).map_err(|e| match e {
+            Error::Io { source, .. } => Error::BadField {
+                at: src.at(&pf.plan.scenario),
+                field: "scenario".into(),
+                message: format!("cannot read {}: {source}", p.display()),
+            },
+            other => other,
+        })?;
+        let sdir = p.parent().map(Path::to_path_buf).unwrap_or_default();
+        (s, Box::new(DiskResolver(sdir)))
+    };
+    let base: toml::Table = toml::from_str(base_src.text()).map_err(|e| Error::Syntax {
+        at: Location::WholeFile(base_src.path().to_path_buf()),
+        message: e.message().to_string(),
+    })?;
+    for v in &pf.plan.vary {
+        if v.values.get_ref().is_empty() {
+            return Err(Error::BadField {
+                at: src.at(&v.values),
+                field: "values".into(),
+                message: "give at least one value".into(),
+            });
+        }
+    }
+    // Cartesian product, the last `vary` changing fastest.
+    let dims: Vec<usize> = pf
+        .plan
+        .vary
+        .iter()
+        .map(|v| v.values.get_ref().len())
+        .collect();
+    let total: usize = dims.iter().product::<usize>().max(1);
+    let mut points = Vec::with_capacity(total);
+    for index in 0..total {
+        let mut rem = index;
+        let mut idx = vec![0; dims.len()];
+        for d in (0..dims.len()).rev() {
+            idx[d] = rem % dims[d];
+            rem /= dims[d];
+        }
+        let mut doc = base.clone();
+        let mut values = Vec::new();
+        let mut label = format!("s{index:04}");
+        for (d, v) in pf.plan.vary.iter().enumerate() {
+            let val = v.values.get_ref()[idx[d]].clone();
+            let p = v.path.get_ref();
+            apply(&mut doc, p, val.clone()).map_err(|m| Error::BadField {
+                at: src.at(&v.path),
+                field: format!("vary.path `{p}`"),
+                message: m,
+            })?;
+            label.push('_');
+            label.push_str(&crate::report::outputs::slug(&format!(
+                "{}={}",
+                p.rsplit('.').next().unwrap_or(p),
+                short_value(&val)
+            )));
+            values.push((p.clone(), val));
+        }
+        let text = toml::to_string(&doc).map_err(|e| Error::Numerical {
+            stage: "expanding the plan",
+            message: e.to_string(),
+        })?;
+        let s = Source::from_text(&format!("{} [grid point {index}]", path.display()), &text);
+        let scenario = resolve_scenario(&s, resolver.as_ref())?;
+        points.push(PlanPoint {
+            index,
+            folder: label,
+            values,
+            scenario,
+        });
+    }
+    Ok(Plan {
+        name: pf.plan.name.unwrap_or_else(|| path.display().to_string()),
+        points,
+    })
+}
+
+fn short_value(v: &toml::Value) -> String {
+    match v {
+        toml::Value::String(s) => s.trim_end_matches(".toml").to_string(),
+        toml::Value::Float(f) => crate::report::format_sig(*f, 3),
+        other => other.to_string(),
+    }
+}
+
+/// Applies a plan path to the scenario document.
+fn apply(doc: &mut toml::Table, path: &str, value: toml::Value) -> std::result::Result<(), String> {
+    let segs: Vec<&str> = path.split('.').collect();
+    if segs.len() >= 3
+        && (segs[0] == "survey" || segs[0] == "cmb")
+        && segs[1].parse::<usize>().is_ok()
+        && !["file", "ideal", "set"].contains(&segs[2])
+    {
+        let entry = doc
+            .get_mut(segs[0])
+            .and_then(|v| v.as_array_mut())
+            .and_then(|a| a.get_mut(segs[1].parse::<usize>().unwrap_or(usize::MAX)))
+            .and_then(|v| v.as_table_mut())
+            .ok_or_else(|| format!("the scenario has no [[{}]] number {}", segs[0], segs[1]))?;
+        let set = entry
+            .entry("set")
+            .or_insert_with(|| toml::Value::Table(toml::Table::new()));
+        let set = set.as_table_mut().ok_or("`set` is not a table")?;
+        set.insert(segs[2..].join("."), value);
+        return Ok(());
+    }
+    set_path(doc, path, value)
+}
+
+/// The row of the combined table for one finished scenario: the grid values and the
+/// headline numbers of its summary.
+pub fn combined_row(point_values: &[(String, Value)], folder: &str, summary: &Value) -> Value {
+    let mut row = serde_json::Map::new();
+    row.insert("folder".into(), folder.into());
+    for (p, v) in point_values {
+        row.insert(p.clone(), v.clone());
+    }
+    row.insert("rows".into(), summary["rows"].clone());
+    row.insert("crossover".into(), summary["crossover"].clone());
+    Value::Object(row)
+}
+
+/// Writes the combined table (`batch_summary.json` and `batch_summary.csv`) from the
+/// scenario folders under `out` that hold a `summary.json` (a merge of shards reads the
+/// same files, so it produces the same table).
+///
+/// # Errors
+/// I/O errors.
+pub fn write_combined(out: &Path) -> Result<usize> {
+    let io = |p: &Path| {
+        let p = p.to_path_buf();
+        move |source| Error::Io {
+            path: p.clone(),
+            source,
+        }
+    };
+    let mut folders: Vec<PathBuf> = std::fs::read_dir(out)
+        .map_err(io(out))?
+        .filter_map(|e| e.ok().map(|e| e.path()))
+        .filter(|p| p.join("summary.json").is_file() && p.join("point.json").is_file())
+        .collect();
+    folders.sort();
+    let mut rows = Vec::new();
+    let mut csv = format!(
+        "# ngreach {} batch: one row per (scenario, experiment, survey, probe, shape) at the largest l_max and k_max\n",
+        crate::VERSION
+    );
+    csv.push_str("# sigma(f_NL) marginalized, CMB convention; k in h/Mpc\n");
+    csv.push_str("folder,grid,experiment,survey,probe,shape,lmax,kmax_h_mpc,sigma_cmb,sigma_survey,sigma_joint,improvement,crossover_kmax_h_mpc\n");
+    for f in &folders {
+        let read = |name: &str| -> Result<Value> {
+            let p = f.join(name);
+            let text = std::fs::read_to_string(&p).map_err(io(&p))?;
+            serde_json::from_str(&text).map_err(|e| Error::Syntax {
+                at: Location::WholeFile(p.clone()),
+                message: e.to_string(),
+            })
+        };
+        let summary = read("summary.json")?;
+        let point = read("point.json")?;
+        let folder = f
+            .file_name()
+            .map(|n| n.to_string_lossy().into_owned())
+            .unwrap_or_default();
+        let vals: Vec<(String, Value)> = point["values"]
+            .as_object()
+            .map(|m| m.iter().map(|(k, v)| (k.clone(), v.clone())).collect())
+            .unwrap_or_default();
+        let grid = vals
+            .iter()
+            .map(|(k, v)| format!("{k}={v}"))
+            .collect::<Vec<_>>()
+            .join(" ");
+        for r in summary["rows"].as_array().cloned().unwrap_or_default() {
+            let cross = summary["crossover"].as_array().and_then(|a| {
+                a.iter()
+                    .find(|c| {
+                        c["experiment"] == r["experiment"]
+                            && c["survey"] == r["survey"]
+                            && c["probe"] == r["probe"]
+                            && c["shape"] == r["shape"]
+                    })
+                    .cloned()
+            });
+            let cell = |v: &Value| match v {
+                Value::Null => "inf".to_string(),
+                Value::String(s) => s.replace(',', ";"),
+                other => other.to_string(),
+            };
+            csv.push_str(&format!(
+                "{folder},{},{},{},{},{},{},{},{},{},{},{},{}\n",
+                grid.replace(',', ";"),
+                cell(&r["experiment"]),
+                cell(&r["survey"]),
+                cell(&r["probe"]),
+                cell(&r["shape"]),
+                cell(&r["lmax"]),
+                cell(&r["kmax_h_mpc"]),
+                cell(&r["sigma_cmb"]),
+                cell(&r["sigma_survey"]),
+                cell(&r["sigma_joint"]),
+                cell(&r["improvement"]),
+                cross.map_or("".into(), |c| match &c["kmax_h_mpc"] {
+                    Value::Null => "not reached".into(),
+                    v => v.to_string(),
+                }),
+            ));
+        }
+        rows.push(combined_row(&vals, &folder, &summary));
+    }
+    let n = rows.len();
+    let all = json!({"version": crate::VERSION, "scenarios": rows});
+    crate::report::write_atomic(
+        &out.join("batch_summary.json"),
+        (serde_json::to_string_pretty(&all).unwrap_or_default() + "\n").as_bytes(),
+    )?;
+    crate::report::write_atomic(&out.join("batch_summary.csv"), csv.as_bytes())?;
+    Ok(n)
+}
+
+/// Writes `point.json` for a grid point (its values), before the scenario runs.
+///
+/// # Errors
+/// I/O errors.
+pub fn write_point(dir: &Path, p: &PlanPoint) -> Result<()> {
+    std::fs::create_dir_all(dir).map_err(|source| Error::Io {
+        path: dir.to_path_buf(),
+        source,
+    })?;
+    let mut vals = serde_json::Map::new();
+    for (k, v) in &p.values {
+        vals.insert(k.clone(), serde_json::to_value(v).unwrap_or(Value::Null));
+    }
+    let j =
+        json!({"index": p.index, "folder": p.folder, "scenario": p.scenario.name, "values": vals});
+    crate::report::write_atomic(
+        &dir.join("point.json"),
+        (serde_json::to_string_pretty(&j).unwrap_or_default() + "\n").as_bytes(),
+    )
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn shard_parsing_and_ownership() {
+        let s = Shard::parse("1/3").unwrap();
+        assert!(s.owns(1) && s.owns(4) && !s.owns(0));
+        assert!(
+            Shard::parse("3/3").is_err()
+                && Shard::parse("x").is_err()
+                && Shard::parse("0/0").is_err()
+        );
+    }
+
+    #[test]
+    fn apply_routes_entry_fields_to_overrides() {
+        let mut doc: toml::Table =
+            toml::from_str("[scenario]\nname = \"a\"\n[[survey]]\nfile = \"s.toml\"\n").unwrap();
+        apply(&mut doc, "survey.0.area_deg2", toml::Value::Float(5.0)).unwrap();
+        apply(
+            &mut doc,
+            "scenario.kmax_h_mpc",
+            toml::Value::Array(vec![toml::Value::Float(0.1)]),
+        )
+        .unwrap();
+        assert_eq!(doc["survey"][0]["set"]["area_deg2"].as_float(), Some(5.0));
+        assert!(doc["scenario"]["kmax_h_mpc"].is_array());
+        assert!(apply(&mut doc, "survey.3.area_deg2", toml::Value::Float(1.0)).is_err());
+    }
+}

@@ -1,0 +1,144 @@
+//! `ngreach cmb`: the CMB bispectrum forecast for one experiment.
+
+use serde_json::{Value, json};
+
+use crate::cmb::bispectrum::{CmbFisherInput, CmbForecast, FieldSet, cmb_fisher};
+use crate::cmb::experiment::{Experiment, validate_lmax};
+use crate::cmb::thermal::ThermalHistory;
+use crate::combine::{log_slopes, sigmas};
+use crate::cosmology::{Background, Cosmology, Primordial};
+use crate::error::{Error, Location, Result};
+use crate::report::{Report, num};
+use crate::scenario::TransferChoice;
+use crate::shapes::Shape;
+
+/// Typed options of `ngreach cmb`.
+#[derive(Debug, Clone)]
+pub struct CmbOptions {
+    /// The experiment (after `--fsky`).
+    pub experiment: Experiment,
+    /// Transfer model.
+    pub transfer: TransferChoice,
+    /// Shell width override, Mpc.
+    pub shell_width_mpc: Option<f64>,
+    /// Diffusion damping in the shell model.
+    pub damping: bool,
+    /// l_max grid.
+    pub lmax: Vec<usize>,
+    /// Field sets.
+    pub fields: Vec<FieldSet>,
+    /// Shapes.
+    pub shapes: Vec<Shape>,
+    /// Parallel loops.
+    pub parallel: bool,
+}
+
+/// Parses `--fields`.
+///
+/// # Errors
+/// Unknown names.
+pub fn parse_fields(list: &[String]) -> Result<Vec<FieldSet>> {
+    list.iter()
+        .map(|s| {
+            FieldSet::parse(s).ok_or_else(|| Error::BadField {
+                at: Location::Flag("--fields".into()),
+                field: "fields".into(),
+                message: format!("unknown field set `{s}`; use T, E or T+E"),
+            })
+        })
+        .collect()
+}
+
+/// Runs the forecast and builds the report.
+///
+/// # Errors
+/// Invalid grids; transfer failures.
+pub fn cmb_report(
+    c: &Cosmology,
+    cosmo_source: &str,
+    opts: &CmbOptions,
+) -> Result<(Report, CmbForecast)> {
+    let exp = &opts.experiment;
+    let mut lmax = opts.lmax.clone();
+    lmax.sort_unstable();
+    lmax.dedup();
+    validate_lmax(&lmax, exp.l_min)?;
+    if opts.shell_width_mpc.is_some() && opts.transfer != TransferChoice::Shell {
+        return Err(Error::Conflict {
+            at: Location::Flag("--shell-width".into()),
+            message: "--shell-width applies to --transfer shell only".into(),
+        });
+    }
+    let bg = Background::new(c);
+    let top = *lmax.last().unwrap_or(&2000);
+    let th = ThermalHistory::new(c, &bg)?;
+    let (table, radial, meta) = match opts.transfer {
+        TransferChoice::Shell => {
+            crate::cmb::shell_transfer_for(&th, opts.shell_width_mpc, opts.damping, top)?
+        }
+        TransferChoice::Full => crate::cmb::full_transfer_for(c, &th, &bg, top)?,
+    };
+    let inp = CmbFisherInput {
+        transfer: &table,
+        primordial: Primordial::new(c),
+        shapes: &opts.shapes,
+        experiment: exp,
+        t_cmb_k: c.params().t_cmb_k,
+        lmax_grid: &lmax,
+        field_sets: &opts.fields,
+        radial: &radial,
+        parallel: opts.parallel,
+    };
+    let fc = cmb_fisher(&inp);
+    let mut r = Report::new("cmb");
+    r.notes = vec![
+        "sigma(f_NL) in the CMB convention; lmax dimensionless".into(),
+        "sigma_conditional: other shapes fixed; sigma_marginal: marginalized over the other shapes listed".into(),
+        "log_slope = d ln F_ii / d ln l_max of the conditional Fisher information (the S/N^2 scaling with resolution)".into(),
+        format!("transfer: {}", table.label()),
+    ];
+    r.inputs = json!({
+        "cosmology": super::cosmology_json(c, cosmo_source),
+        "experiment": exp,
+        "transfer": meta,
+        "lmax": lmax,
+        "fields": opts.fields.iter().map(|f| f.label()).collect::<Vec<_>>(),
+        "shapes": opts.shapes.iter().map(|s| s.name()).collect::<Vec<_>>(),
+        "radial_nodes": radial.len(),
+        "k_nodes": table.k().len(),
+    });
+    r.columns = [
+        "lmax",
+        "fields",
+        "shape",
+        "sigma_conditional",
+        "sigma_marginal",
+        "log_slope",
+    ]
+    .iter()
+    .map(|s| s.to_string())
+    .collect();
+    let lm: Vec<f64> = fc.lmax.iter().map(|&l| l as f64).collect();
+    let mut mats = Vec::new();
+    for (m, &l) in fc.lmax.iter().enumerate() {
+        for (ifs, fs) in fc.field_sets.iter().enumerate() {
+            let f = &fc.fisher[ifs][m];
+            let (cond, marg) = sigmas(f);
+            for (is, s) in opts.shapes.iter().enumerate() {
+                let info: Vec<f64> = fc.fisher[ifs].iter().map(|x| x.get(is, is)).collect();
+                let slope = log_slopes(&lm, &info)[m];
+                r.rows.push(vec![
+                    json!(l),
+                    Value::String(fs.label().into()),
+                    Value::String(s.name()),
+                    num(cond[is]),
+                    num(marg[is]),
+                    num(slope),
+                ]);
+            }
+            mats.push(json!({"lmax": l, "fields": fs.label(), "parameters": f.names(), "matrix": f.rows()}));
+        }
+    }
+    r.json_extra.push(("fisher".into(), Value::Array(mats)));
+    Ok((r, fc))
+}
