@@ -215,11 +215,11 @@ mod tests {
         // y'' = -y with y(0) = 0, y'(0) = 1, outputs between steps.
         let mut d = Dopri::new(2);
         let mut y = [0.0, 1.0];
-        let ts: Vec<f64> = (1..=200).map(|i| i as f64 * 0.05).collect();
+        let ts: Vec<f64> = (1..=1000).map(|i| i as f64 * 0.01).collect();
         let mut worst: f64 = 0.0;
         let tol = Tolerances {
-            rtol: 1e-9,
-            atol: 1e-12,
+            rtol: 1e-8,
+            atol: 1e-11,
             max_steps: 100_000,
         };
         d.integrate(
@@ -236,10 +236,10 @@ mod tests {
             |t, v| worst = worst.max((v[0] - t.sin()).abs()),
         )
         .unwrap();
-        assert!(worst < 1e-8, "dense output error {worst}");
-        assert!((y[0] - 10f64.sin()).abs() < 1e-8);
+        assert!(worst < 1e-7, "dense output error {worst}");
+        assert!((y[0] - 10f64.sin()).abs() < 1e-7);
         // The steps are much longer than the output spacing, so the dense output matters.
-        assert!(d.steps < 150, "{} steps", d.steps);
+        assert!(d.steps < 200, "{} steps", d.steps);
     }
 
     #[test]

@@ -143,23 +143,27 @@ impl Projection<'_> {
             let k = ks[ik];
             let n = self.weighted_sources(k, buf);
             let mut acc = vec![(0.0, 0.0); nl];
-            for i in 0..n {
-                let x = k * (self.eta0 - self.nodes.eta[i]);
-                if x <= 1e-8 {
-                    continue;
-                }
-                let [s0, s1, s2, se] = [buf[4 * i], buf[4 * i + 1], buf[4 * i + 2], buf[4 * i + 3]];
-                let ix = 1.0 / x;
-                for (il, &l) in ls.iter().enumerate() {
+            // l outer, nodes inner: each l's table is then read over a short x range,
+            // which stays in cache.
+            for (il, &l) in ls.iter().enumerate() {
+                let lf = l as f64;
+                let (mut at, mut ae) = (0.0, 0.0);
+                for i in 0..n {
+                    let x = k * (self.eta0 - self.nodes.eta[i]);
+                    if x <= 1e-8 {
+                        continue;
+                    }
                     let Some((j, j1)) = tables.eval(il, x) else {
                         continue;
                     };
-                    let lf = l as f64;
-                    let t = j * (s0 - s2 + lf * s1 * ix + 1.5 * lf * (lf - 1.0) * s2 * ix * ix)
+                    let [s0, s1, s2, se] =
+                        [buf[4 * i], buf[4 * i + 1], buf[4 * i + 2], buf[4 * i + 3]];
+                    let ix = 1.0 / x;
+                    at += j * (s0 - s2 + lf * s1 * ix + 1.5 * lf * (lf - 1.0) * s2 * ix * ix)
                         + j1 * (-s1 + 3.0 * s2 * ix);
-                    acc[il].0 += t;
-                    acc[il].1 += j * se * ix * ix;
+                    ae += j * se * ix * ix;
                 }
+                acc[il] = (at, ae);
             }
             acc
         };

@@ -4,6 +4,7 @@
 //!
 //! (Module documentation with the equations follows in a later commit.)
 
+mod cache;
 mod dopri;
 mod equations;
 mod grids;
@@ -12,6 +13,7 @@ mod modes;
 mod spectra;
 mod timeline;
 
+pub use cache::{CacheOptions, CacheStatus, cache_file, cache_key, cached_transfer, read_table, write_table};
 pub use spectra::{SampledSpectra, Spectra};
 
 use crate::cmb::ThermalHistory;
@@ -111,6 +113,19 @@ impl BoltzmannSolver {
         bg: &Background,
         settings: Settings,
     ) -> Result<Self> {
+        Self::build(cosmo, thermal, bg, settings, None)
+    }
+
+    /// As [`Self::new`], with the free-electron fraction of the opacity multiplied by
+    /// `xe_ratio(z)` (used by the tests to feed in a reference library's ionization
+    /// history).
+    fn build(
+        cosmo: &Cosmology,
+        thermal: &ThermalHistory,
+        bg: &Background,
+        settings: Settings,
+        xe_ratio: Option<&dyn Fn(f64) -> f64>,
+    ) -> Result<Self> {
         settings.validate()?;
         if bg.cosmology() != cosmo {
             return Err(Error::Conflict {
@@ -131,11 +146,11 @@ impl BoltzmannSolver {
                 ),
             });
         }
-        let timeline = Timeline::new(cosmo, thermal, bg)?;
+        let timeline = Timeline::new(cosmo, thermal, bg, xe_ratio)?;
         let eta0 = timeline.eta0();
         let chi_star = thermal.summary().d_m_star_mpc;
         let plan = Plan::new(settings.precision, settings.lmax, eta0, chi_star);
-        let nodes = Nodes::new(thermal, &plan);
+        let nodes = Nodes::new(thermal, &plan, xe_ratio, bg);
         let lay = Layout {
             l_nu: plan.l_nu,
             l_g: plan.l_g,
@@ -279,5 +294,73 @@ impl BoltzmannSolver {
             .map(|(&k, &d)| d * self.t_norm / (k * k))
             .collect();
         Ok(CubicSpline::new(x, y))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Rows of a whitespace-separated reference table (comment lines skipped).
+    fn rows(text: &str, prefix: Option<&str>) -> Vec<Vec<f64>> {
+        text.lines()
+            .filter(|l| !l.starts_with('#') && !l.trim().is_empty())
+            .filter_map(|l| match prefix {
+                Some(p) => l.strip_prefix(p),
+                None => Some(l),
+            })
+            .filter_map(|l| l.split_whitespace().map(|v| v.parse().ok()).collect())
+            .collect()
+    }
+
+    /// Stage check (methods.md, "debugging against a reference library"): with camb's
+    /// ionization history fed into the opacity, the solver's C_l must match camb's far
+    /// better than with ngreach's own thermal history, whose HeI recombination lacks the
+    /// corrections camb always applies (see tests/boltzmann.rs). Reference: camb 2.0.5,
+    /// tests/reference/thermal_camb.tsv (x_e, `matched` settings) and cl_camb.tsv.
+    #[test]
+    fn matches_camb_with_camb_ionization_history() {
+        let c = Cosmology::planck2018();
+        let bg = Background::new(&c);
+        let th = ThermalHistory::new(&c, &bg).unwrap();
+        let xe = rows(
+            include_str!("../../../tests/reference/thermal_camb.tsv"),
+            Some("xe_matched"),
+        );
+        let ratio: Vec<(f64, f64)> = xe.iter().map(|r| (r[0], r[1] / th.x_e(r[0]))).collect();
+        let f = |z: f64| {
+            let j = ratio.partition_point(|r| r.0 <= z);
+            if j == 0 || j == ratio.len() {
+                return 1.0;
+            }
+            let ((z0, r0), (z1, r1)) = (ratio[j - 1], ratio[j]);
+            r0 + (r1 - r0) * (z - z0) / (z1 - z0)
+        };
+        let settings = Settings {
+            lmax: 2500,
+            ..Settings::default()
+        };
+        let s = BoltzmannSolver::build(&c, &th, &bg, settings, Some(&f)).unwrap();
+        let cl = s.cl_sampled().interpolate();
+        let camb = rows(include_str!("../../../tests/reference/cl_camb.tsv"), None);
+        let mut worst = [(0.0_f64, 0usize); 3];
+        for r in &camb {
+            let l = r[0] as usize;
+            if l < 30 {
+                continue;
+            }
+            let d = [
+                cl.tt[l] / r[1] - 1.0,
+                cl.ee[l] / r[2] - 1.0,
+                (cl.te[l] - r[3]) / (r[1] * r[2]).sqrt(),
+            ];
+            for i in 0..3 {
+                if d[i].abs() > worst[i].0.abs() {
+                    worst[i] = (d[i], l);
+                }
+            }
+        }
+        eprintln!("with camb's x_e, 30 <= l <= 2500: worst TT {:?} EE {:?} TE/sqrt(TT EE) {:?}", worst[0], worst[1], worst[2]);
+        assert!(worst[0].0.abs() < 3e-3 && worst[1].0.abs() < 3e-3 && worst[2].0.abs() < 3e-3);
     }
 }

@@ -74,8 +74,15 @@ pub(crate) struct Timeline {
 }
 
 impl Timeline {
-    /// Tabulates the background and thermal quantities of one cosmology.
-    pub fn new(cosmo: &Cosmology, th: &ThermalHistory, bg: &Background) -> Result<Self> {
+    /// Tabulates the background and thermal quantities of one cosmology. `xe_ratio(z)`, if
+    /// given, multiplies the free-electron fraction in the opacity (a hook for comparisons
+    /// against another recombination history).
+    pub fn new(
+        cosmo: &Cosmology,
+        th: &ThermalHistory,
+        bg: &Background,
+        xe_ratio: Option<&dyn Fn(f64) -> f64>,
+    ) -> Result<Self> {
         let eta0 = bg.conformal_age();
         let u0 = ETA_MIN.ln();
         let du = (eta0.ln() - u0) / (N_NODES - 1) as f64;
@@ -116,7 +123,10 @@ impl Timeline {
             let a = x.exp();
             lna.push(x);
             dlna.push(eta * hub_of(a));
-            let k = th.opacity_eta(eta);
+            let mut k = th.opacity_eta(eta);
+            if let Some(f) = xe_ratio {
+                k *= f(1.0 / x.min(0.0).exp() - 1.0);
+            }
             if !(k > 0.0 && k.is_finite()) {
                 return Err(Error::Numerical {
                     stage: "boltzmann timeline",
@@ -255,7 +265,7 @@ mod tests {
         let c = Cosmology::planck2018();
         let bg = Background::new(&c);
         let th = ThermalHistory::new(&c, &bg).unwrap();
-        let tl = Timeline::new(&c, &th, &bg).unwrap();
+        let tl = Timeline::new(&c, &th, &bg, None).unwrap();
         for &z in &[1e6, 3e4, 3000.0, 1100.0, 500.0, 10.0, 0.5, 0.0] {
             let a = 1.0 / (1.0 + z);
             let eta = bg.conformal_time_a(a);
