@@ -74,7 +74,11 @@ impl CacheOptions {
         if let Some(d) = &self.dir {
             return Some(d.clone());
         }
-        let var = |name: &str| std::env::var_os(name).filter(|v| !v.is_empty()).map(PathBuf::from);
+        let var = |name: &str| {
+            std::env::var_os(name)
+                .filter(|v| !v.is_empty())
+                .map(PathBuf::from)
+        };
         if let Some(d) = var("NGREACH_CACHE_DIR") {
             return Some(d);
         }
@@ -175,7 +179,7 @@ fn payload(table: &TransferTable) -> Vec<u8> {
     let nf = table.fields().len();
     let label = table.label().as_bytes();
     let mut out = Vec::with_capacity(8 * (4 + nf + 2 * nk + nf * nk * nl) + label.len());
-    let mut u = |v: u64, out: &mut Vec<u8>| out.extend_from_slice(&v.to_le_bytes());
+    let u = |v: u64, out: &mut Vec<u8>| out.extend_from_slice(&v.to_le_bytes());
     u(table.lmax() as u64, &mut out);
     u(nk as u64, &mut out);
     u(nf as u64, &mut out);
@@ -207,7 +211,11 @@ fn payload(table: &TransferTable) -> Vec<u8> {
 ///
 /// # Errors
 /// The I/O error, as text.
-pub fn write_table(path: &Path, key: u64, table: &TransferTable) -> std::result::Result<(), String> {
+pub fn write_table(
+    path: &Path,
+    key: u64,
+    table: &TransferTable,
+) -> std::result::Result<(), String> {
     static COUNTER: AtomicU64 = AtomicU64::new(0);
     let dir = path.parent().unwrap_or(Path::new("."));
     std::fs::create_dir_all(dir).map_err(|e| format!("creating {}: {e}", dir.display()))?;
@@ -216,7 +224,9 @@ pub fn write_table(path: &Path, key: u64, table: &TransferTable) -> std::result:
     sum.bytes(&body);
     let tmp = dir.join(format!(
         ".{}.tmp-{}-{}",
-        path.file_name().and_then(|n| n.to_str()).unwrap_or("transfer"),
+        path.file_name()
+            .and_then(|n| n.to_str())
+            .unwrap_or("transfer"),
         std::process::id(),
         COUNTER.fetch_add(1, Ordering::Relaxed)
     ));
@@ -245,7 +255,11 @@ pub fn write_table(path: &Path, key: u64, table: &TransferTable) -> std::result:
 /// # Errors
 /// A description of what is wrong with the file (missing, truncated, corrupt, other key,
 /// other l_max).
-pub fn read_table(path: &Path, key: u64, lmax: usize) -> std::result::Result<TransferTable, String> {
+pub fn read_table(
+    path: &Path,
+    key: u64,
+    lmax: usize,
+) -> std::result::Result<TransferTable, String> {
     let bytes = std::fs::read(path).map_err(|e| format!("reading {}: {e}", path.display()))?;
     if bytes.len() < HEADER_LEN {
         return Err(format!("truncated header ({} bytes)", bytes.len()));
@@ -256,7 +270,10 @@ pub fn read_table(path: &Path, key: u64, lmax: usize) -> std::result::Result<Tra
     let u32_at = |o: usize| u32::from_le_bytes(bytes[o..o + 4].try_into().expect("4 bytes"));
     let u64_at = |o: usize| u64::from_le_bytes(bytes[o..o + 8].try_into().expect("8 bytes"));
     if u32_at(8) != FORMAT_VERSION {
-        return Err(format!("format version {} (expected {FORMAT_VERSION})", u32_at(8)));
+        return Err(format!(
+            "format version {} (expected {FORMAT_VERSION})",
+            u32_at(8)
+        ));
     }
     if u64_at(16) != key {
         return Err(format!("key {:016x} (expected {key:016x})", u64_at(16)));
@@ -305,7 +322,9 @@ pub fn read_table(path: &Path, key: u64, lmax: usize) -> std::result::Result<Tra
     let label = body
         .get(pos..pos.saturating_add(lab_len))
         .ok_or("payload ends inside the label")?;
-    let label = std::str::from_utf8(label).map_err(|_| "label is not UTF-8")?.to_string();
+    let label = std::str::from_utf8(label)
+        .map_err(|_| "label is not UTF-8")?
+        .to_string();
     pos += lab_len;
     let n_vals = nk
         .checked_mul(lmax + 1)
@@ -403,7 +422,8 @@ mod tests {
     }
 
     fn tmpdir(name: &str) -> PathBuf {
-        let d = std::env::temp_dir().join(format!("ngreach-cache-test-{name}-{}", std::process::id()));
+        let d =
+            std::env::temp_dir().join(format!("ngreach-cache-test-{name}-{}", std::process::id()));
         let _ = std::fs::remove_dir_all(&d);
         d
     }

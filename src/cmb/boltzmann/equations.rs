@@ -114,12 +114,6 @@ impl<'a> Mode<'a> {
         }
     }
 
-    /// Background at `eta`.
-    #[inline]
-    pub fn bg(&self, eta: f64) -> BackgroundAt {
-        self.tl.at(eta)
-    }
-
     /// Adiabatic growing-mode initial conditions deep in radiation domination (MB95
     /// Eq. 96, leading order in k eta), in the Tight-phase layout, normalized to unit
     /// primordial potential Phi = (3/5) zeta: MB95's constant C is -(5/6) Phi (the metric
@@ -157,8 +151,8 @@ impl<'a> Mode<'a> {
                 // Eq. 21a.
                 let m = b.rho_c * y[DC] + b.rho_b * y[DB];
                 let rr = b.rho_g + b.rho_n;
-                let hp =
-                    (2.0 * k2 * eta_m + 3.0 * m - 12.0 * rr * eta_m) / (b.hub * (1.0 - 12.0 * rr / k2));
+                let hp = (2.0 * k2 * eta_m + 3.0 * m - 12.0 * rr * eta_m)
+                    / (b.hub * (1.0 - 12.0 * rr / k2));
                 let dr = 4.0 * (b.hub * hp / k2 - eta_m);
                 let tr = -0.5 * hp;
                 let etap = 1.5 / k2 * (b.rho_b * y[TB] + 4.0 / 3.0 * rr * tr);
@@ -173,8 +167,7 @@ impl<'a> Mode<'a> {
                 }
             }
             Phase::Tight | Phase::Full => {
-                let sum_rd =
-                    b.rho_c * y[DC] + b.rho_b * y[DB] + b.rho_g * y[DG] + b.rho_n * y[DN];
+                let sum_rd = b.rho_c * y[DC] + b.rho_b * y[DB] + b.rho_g * y[DG] + b.rho_n * y[DN];
                 let hp = (2.0 * k2 * eta_m + 3.0 * sum_rd) / b.hub;
                 let etap =
                     1.5 / k2 * (b.rho_b * y[TB] + 4.0 / 3.0 * (b.rho_g * y[TG] + b.rho_n * y[TN]));
@@ -253,11 +246,10 @@ impl<'a> Mode<'a> {
                 // Photon temperature hierarchy (MB95 Eq. 63) with the truncation of Eq. 51.
                 let lg = lay.l_g;
                 let f = |l: usize| y[lay.fg(l)];
-                dy[lay.fg(2)] = 8.0 / 15.0 * y[TG] - 0.6 * k * f(3)
-                    + 4.0 / 15.0 * hp
-                    + 1.6 * m.etap
-                    - 0.9 * kap * f(2)
-                    + 0.1 * kap * (y[lay.gp(0)] + y[lay.gp(2)]);
+                dy[lay.fg(2)] =
+                    8.0 / 15.0 * y[TG] - 0.6 * k * f(3) + 4.0 / 15.0 * hp + 1.6 * m.etap
+                        - 0.9 * kap * f(2)
+                        + 0.1 * kap * (y[lay.gp(0)] + y[lay.gp(2)]);
                 for l in 3..lg {
                     let lf = l as f64;
                     dy[lay.fg(l)] =
@@ -302,9 +294,7 @@ impl<'a> Mode<'a> {
         let m = self.metric(Phase::Tight, &b, y[ETA], y);
         let lay = self.lay;
         let tau_c = 1.0 / b.kappa;
-        for i in lay.len(Phase::Tight)..lay.len(Phase::Full) {
-            y[i] = 0.0;
-        }
+        y[lay.len(Phase::Tight)..lay.len(Phase::Full)].fill(0.0);
         let f2 = 2.0 * m.sg;
         y[lay.fg(2)] = f2;
         y[lay.fg(3)] = 3.0 / 7.0 * self.k * tau_c * f2;
@@ -342,8 +332,7 @@ impl<'a> Mode<'a> {
             Phase::Streaming => (0.0, 0.0),
         };
         let dshear = b.rho_g * (dsg - 2.0 * b.hub * m.sg) + b.rho_n * (dsn - 2.0 * b.hub * m.sn);
-        let ddalpha =
-            m.etap - 2.0 * b.dhub * alpha - 2.0 * b.hub * dalpha - 6.0 / k2 * dshear;
+        let ddalpha = m.etap - 2.0 * b.dhub * alpha - 2.0 * b.hub * dalpha - 6.0 / k2 * dshear;
         // Newtonian-gauge combinations: Theta_0 + psi = delta_g/4 + alpha',
         // phi' + psi' = eta' + alpha'', theta_b(Newtonian) = theta_b + k^2 alpha.
         let s0 = g * (0.25 * m.dg + dalpha) + emt * (m.etap + ddalpha);

@@ -109,8 +109,6 @@ pub(crate) struct Nodes {
     pub n_rec: usize,
     /// Nodes [n_rec, n_early) the early-ISW era (k <= k_cut_early).
     pub n_early: usize,
-    /// First node (start of the integrals), Mpc.
-    pub eta_start: f64,
     /// End of the recombination region, Mpc.
     pub eta_rec_end: f64,
 }
@@ -132,17 +130,25 @@ fn panels(lo: f64, hi: f64, h: f64, gl: &GaussLegendre, eta: &mut Vec<f64>, w: &
 impl Nodes {
     /// Builds the nodes from the visibility of the thermal history; `xe_ratio(z)`, if
     /// given, rescales the visibility as it rescales the opacity (see `Timeline::new`).
-    pub fn new(th: &ThermalHistory, plan: &Plan, xe_ratio: Option<&dyn Fn(f64) -> f64>, bg: &crate::cosmology::Background) -> Self {
+    pub fn new(
+        th: &ThermalHistory,
+        plan: &Plan,
+        xe_ratio: Option<&dyn Fn(f64) -> f64>,
+        bg: &crate::cosmology::Background,
+    ) -> Self {
         let et = th.eta_table();
         let vis = th.visibility_table();
-        let (ipk, gmax) = vis
-            .iter()
-            .enumerate()
-            .fold((0, 0.0), |(i0, g0), (i, &g)| if g > g0 { (i, g) } else { (i0, g0) });
+        let (ipk, gmax) =
+            vis.iter().enumerate().fold(
+                (0, 0.0),
+                |(i0, g0), (i, &g)| if g > g0 { (i, g) } else { (i0, g0) },
+            );
         // Start where the visibility is 1e-7 of its peak (e^-tau ~ 1e-9 there), and end
         // the recombination region where it has fallen to 3e-4 of the peak after it.
         let i_start = (0..ipk).rev().find(|&i| vis[i] < 1e-7 * gmax).unwrap_or(0);
-        let i_end = (ipk..vis.len()).find(|&i| vis[i] < 3e-4 * gmax).unwrap_or(vis.len() - 1);
+        let i_end = (ipk..vis.len())
+            .find(|&i| vis[i] < 3e-4 * gmax)
+            .unwrap_or(vis.len() - 1);
         let eta_start = et[i_start];
         let eta_rec_end = et[i_end];
         let eta0 = th.conformal_age();
@@ -169,12 +175,23 @@ impl Nodes {
             let long = 2.5 * plan.panel_rec;
             let f = level(e).min(level(e + 0.5 * long)).min(level(e + long));
             let hi = (e + f * plan.panel_rec).min(eta_rec_end);
-            let hi = if eta_rec_end - hi < 0.3 * plan.panel_rec { eta_rec_end } else { hi };
+            let hi = if eta_rec_end - hi < 0.3 * plan.panel_rec {
+                eta_rec_end
+            } else {
+                hi
+            };
             panels(e, hi, hi - e, &gl, &mut eta, &mut w);
             e = hi;
         }
         let n_rec = eta.len();
-        panels(eta_rec_end, eta_early_end, plan.panel_early, &gl, &mut eta, &mut w);
+        panels(
+            eta_rec_end,
+            eta_early_end,
+            plan.panel_early,
+            &gl,
+            &mut eta,
+            &mut w,
+        );
         let n_early = eta.len();
         panels(eta_early_end, eta0, plan.panel_late, &gl, &mut eta, &mut w);
         let g = eta
@@ -192,7 +209,6 @@ impl Nodes {
             emt,
             n_rec,
             n_early,
-            eta_start,
             eta_rec_end,
         }
     }
@@ -202,9 +218,12 @@ impl Nodes {
         self.eta.len()
     }
 
-    /// How many nodes a mode of wavenumber k needs (a prefix of the list), given the
-    /// cut-offs of the early and late regions (with their tapers).
-    pub fn needed(&self, k: f64, plan: &Plan) -> usize {
+    /// How many nodes the projection at wavenumber k uses (a prefix of the list), given
+    /// the cut-offs of the early and late regions (with their tapers). The mode
+    /// integrations add `margin` to k, so that the splines in k of every node's sources
+    /// extend past the last k that uses them.
+    pub fn needed(&self, k: f64, plan: &Plan, margin: f64) -> usize {
+        let k = k - margin;
         if k <= 1.25 * plan.k_cut_late {
             self.len()
         } else if k <= 1.25 * plan.k_cut_early {
@@ -276,7 +295,11 @@ pub(crate) fn sampled_ls(lmax: usize, l_step_max: usize) -> Vec<usize> {
     let mut l = 2;
     while l < lmax {
         ls.push(l);
-        let step = if l < 20 { 1 } else { (l / 10).clamp(1, l_step_max.max(1)) };
+        let step = if l < 20 {
+            1
+        } else {
+            (l / 10).clamp(1, l_step_max.max(1))
+        };
         // Shorter steps towards lmax, where the natural spline has its free end.
         let step = step.min(((lmax - l) / 3).max(1));
         l += step;

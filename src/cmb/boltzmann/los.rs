@@ -40,7 +40,7 @@ impl Projection<'_> {
     /// Sources (with quadrature weights and tapers folded in) at the nodes that k uses;
     /// returns how many.
     fn weighted_sources(&self, k: f64, buf: &mut [f64]) -> usize {
-        let n = self.nodes.needed(k, self.plan);
+        let n = self.nodes.needed(k, self.plan, 0.0);
         self.src.eval_into(k, n, buf);
         let te = taper(k, self.plan.k_cut_early);
         let tl = taper(k, self.plan.k_cut_late);
@@ -79,9 +79,11 @@ impl Projection<'_> {
             .collect();
         let nn = self.nodes.len();
         let init = || (vec![0.0; 4 * nn], vec![0.0; nl + 2]);
-        let one = |(buf, jl): &mut (Vec<f64>, Vec<f64>), (ik, (tr, er)): (usize, (&mut [f64], &mut [f64]))| {
+        let one = |(buf, jl): &mut (Vec<f64>, Vec<f64>),
+                   (ik, (tr, er)): (usize, (&mut [f64], &mut [f64]))| {
             let k = ks[ik];
             let n = self.weighted_sources(k, buf);
+            let mut group = Group::default();
             for i in 0..n {
                 let x = k * (self.eta0 - self.nodes.eta[i]);
                 if x <= 1e-8 {
@@ -91,14 +93,25 @@ impl Projection<'_> {
                 if lc < 3 {
                     continue;
                 }
-                sph_bessel_all_l(lc as u32, x, &mut jl[..=lc]);
                 let [s0, s1, s2, se] = [buf[4 * i], buf[4 * i + 1], buf[4 * i + 2], buf[4 * i + 3]];
                 let ix = 1.0 / x;
-                let ca = s0 - s2;
-                let cb = s1 * ix;
-                let cc = 1.5 * s2 * ix * ix;
-                let cd = -s1 + 3.0 * s2 * ix;
-                let ce = se * ix * ix;
+                let coef = [
+                    s0 - s2,
+                    s1 * ix,
+                    1.5 * s2 * ix * ix,
+                    -s1 + 3.0 * s2 * ix,
+                    se * ix * ix,
+                ];
+                if x >= (lmax + 2) as f64 {
+                    // Every l <= lmax + 1 lies below the turning point: the upward
+                    // recurrence is stable there, and is fused with the accumulation.
+                    if group.push(x, coef) {
+                        group.run(tr, er, lmax);
+                    }
+                    continue;
+                }
+                let [ca, cb, cc, cd, ce] = coef;
+                sph_bessel_all_l(lc as u32, x, &mut jl[..=lc]);
                 // Equal-length slices: no bounds checks, so the loop vectorizes.
                 let tr = &mut tr[2..lc];
                 let er = &mut er[2..lc];
@@ -111,6 +124,9 @@ impl Projection<'_> {
                     tr[i] += j * (ca + lf[i] * cb + ll1[i] * cc) + j1[i] * cd;
                     er[i] += j * ce;
                 }
+            }
+            if group.len > 0 {
+                group.run(tr, er, lmax);
             }
             for l in 0..nl {
                 er[l] *= enorm[l];
@@ -187,6 +203,82 @@ impl Projection<'_> {
             }
         }
         (t, e)
+    }
+}
+
+/// Lanes of the fused kernel.
+const LANES: usize = 4;
+
+/// Up to four nodes of one k whose x exceeds lmax + 1: their j_l for all l come from the
+/// upward recurrence j_{l+1} = (2l + 1)/x j_l - j_{l-1} from the exact j_0, j_1 (stable
+/// below the turning point, as in `sph_bessel_all_l`), run for the four nodes side by side
+/// and accumulated directly into the rows, which hides the latency of the recurrence.
+#[derive(Default)]
+struct Group {
+    len: usize,
+    ix: [f64; LANES],
+    j0: [f64; LANES],
+    j1: [f64; LANES],
+    /// Per lane: ca, cb, cc, cd, ce as in `every_l`.
+    c: [[f64; LANES]; 5],
+}
+
+impl Group {
+    /// Adds a node; true when the group is full.
+    fn push(&mut self, x: f64, coef: [f64; 5]) -> bool {
+        let g = self.len;
+        let (s, co) = x.sin_cos();
+        self.ix[g] = 1.0 / x;
+        self.j0[g] = s / x;
+        self.j1[g] = (s / x - co) / x;
+        for (c, v) in self.c.iter_mut().zip(coef) {
+            c[g] = v;
+        }
+        self.len += 1;
+        self.len == LANES
+    }
+
+    /// Accumulates the group into the rows (l = 2..=lmax) and empties it.
+    fn run(&mut self, tr: &mut [f64], er: &mut [f64], lmax: usize) {
+        for g in self.len..LANES {
+            // Idle lanes: zero coefficients on a harmless argument.
+            self.ix[g] = 1e-6;
+            self.j0[g] = 0.0;
+            self.j1[g] = 0.0;
+            for c in self.c.iter_mut() {
+                c[g] = 0.0;
+            }
+        }
+        let [ca, cb, cc, cd, ce] = self.c;
+        let ix = self.ix;
+        let mut jm = self.j0;
+        let mut jc = self.j1;
+        // l = 1 -> j_2.
+        for g in 0..LANES {
+            let jp = 3.0 * ix[g] * jc[g] - jm[g];
+            jm[g] = jc[g];
+            jc[g] = jp;
+        }
+        let tr = &mut tr[2..=lmax];
+        let er = &mut er[2..=lmax];
+        for (i, (t, e)) in tr.iter_mut().zip(er.iter_mut()).enumerate() {
+            let lf = (i + 2) as f64;
+            let tl = 2.0 * lf + 1.0;
+            let ll1 = lf * (lf - 1.0);
+            let mut ta = 0.0;
+            let mut ea = 0.0;
+            for g in 0..LANES {
+                let j = jc[g];
+                let jp = tl * ix[g] * j - jm[g];
+                ta += j * (ca[g] + lf * cb[g] + ll1 * cc[g]) + jp * cd[g];
+                ea += j * ce[g];
+                jm[g] = j;
+                jc[g] = jp;
+            }
+            *t += ta;
+            *e += ea;
+        }
+        self.len = 0;
     }
 }
 
@@ -275,7 +367,67 @@ impl PairTables {
         let h2 = 0.5 * t2 + t3 * (-1.5 + t * (1.5 - 0.5 * t));
         let h4 = t3 * (-4.0 + t * (7.0 - 3.0 * t));
         let h3 = t3 * (0.5 + t * (-1.0 + 0.5 * t));
-        let v = |o: usize| p0[o] * h0 + p0[o + 1] * h1 + p0[o + 2] * h2 + p1[o] * h5 + p1[o + 1] * h4 + p1[o + 2] * h3;
+        let v = |o: usize| {
+            p0[o] * h0
+                + p0[o + 1] * h1
+                + p0[o + 2] * h2
+                + p1[o] * h5
+                + p1[o + 1] * h4
+                + p1[o + 2] * h3
+        };
         Some((v(0), v(3)))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn fused_recurrence_matches_bessel_routine() {
+        // Lane g (weight w = g + 1) accumulates T_l += w j_l + (w/2) j_{l+1} (coefficients
+        // ca and cd) and E_l += w j_l (ce), checked against sph_bessel_all_l.
+        let lmax = 400;
+        let xs = [402.5, 517.0, 1999.3];
+        let mut tr = vec![0.0; lmax + 1];
+        let mut er = vec![0.0; lmax + 1];
+        let mut g = Group::default();
+        for (i, &x) in xs.iter().enumerate() {
+            let w = (i + 1) as f64;
+            g.push(x, [w, 0.0, 0.0, 0.5 * w, w]);
+        }
+        g.run(&mut tr, &mut er, lmax);
+        let mut want_t = vec![0.0; lmax + 1];
+        let mut want_e = vec![0.0; lmax + 1];
+        let mut jl = vec![0.0; lmax + 2];
+        for (i, &x) in xs.iter().enumerate() {
+            let w = (i + 1) as f64;
+            sph_bessel_all_l(lmax as u32 + 1, x, &mut jl);
+            for l in 2..=lmax {
+                want_t[l] += w * jl[l] + 0.5 * w * jl[l + 1];
+                want_e[l] += w * jl[l];
+            }
+        }
+        for l in 2..=lmax {
+            let scale = 1.0 / 400.0; // |j_l(x)| <= ~1/x
+            assert!((tr[l] - want_t[l]).abs() < 1e-12 * scale, "l={l}");
+            assert!((er[l] - want_e[l]).abs() < 1e-12 * scale, "l={l}");
+        }
+        assert_eq!(tr[0], 0.0);
+        assert_eq!(tr[1], 0.0);
+    }
+
+    #[test]
+    fn l_cut_bounds_the_bessel_function() {
+        // Beyond l_cut(x), |j_l(x)| is below 1e-6 of its largest value over l.
+        for &x in &[5.0, 80.0, 900.0, 4000.0] {
+            let lc = l_cut(x);
+            let mut jl = vec![0.0; lc + 40];
+            sph_bessel_all_l(lc as u32 + 39, x, &mut jl);
+            let peak = jl.iter().fold(0.0_f64, |m, v| m.max(v.abs()));
+            for &v in &jl[lc..] {
+                assert!(v.abs() < 1e-6 * peak, "x={x}");
+            }
+        }
     }
 }

@@ -66,6 +66,7 @@ fn tight_coupling_end(tl: &Timeline, k: f64, eps: f64, earliest: f64, latest: f6
 }
 
 /// Integrates one mode from deep in radiation domination to today.
+#[allow(clippy::too_many_arguments)] // internal: the mode's inputs
 pub(crate) fn solve_mode(
     k: f64,
     tl: &Timeline,
@@ -83,7 +84,7 @@ pub(crate) fn solve_mode(
         atol: plan.atol,
         max_steps: 5_000_000,
     };
-    let eta_ini = (0.01 / k).min(0.1).max(2.0 * ETA_MIN);
+    let eta_ini = (0.01 / k).clamp(2.0 * ETA_MIN, 0.1);
     let first_node = nodes.eta.first().copied().unwrap_or(eta0);
     let eta_tca = tight_coupling_end(tl, k, plan.eps_tca, eta_ini, first_node.max(eta_ini));
     let eta_rsa = (plan.k_eta_rsa / k).max(nodes.eta_rec_end).min(eta0);
@@ -97,13 +98,13 @@ pub(crate) fn solve_mode(
     };
 
     let run = |phase: Phase,
-                   t0: f64,
-                   t1: f64,
-                   h0: f64,
-                   y: &mut [f64],
-                   dy: &mut [f64],
-                   ode: &mut Dopri,
-                   sources: &mut [f64]|
+               t0: f64,
+               t1: f64,
+               h0: f64,
+               y: &mut [f64],
+               dy: &mut [f64],
+               ode: &mut Dopri,
+               sources: &mut [f64]|
      -> Result<()> {
         let n = lay.len(phase);
         let start = t_out.partition_point(|&x| x <= t0);
@@ -144,7 +145,16 @@ pub(crate) fn solve_mode(
     mode.leave_tight(eta_tca, y);
     let b = tl.at(eta_tca);
     let h_full = 0.5 / ((1.0 + b.r) * b.kappa + k);
-    run(Phase::Full, eta_tca, eta_rsa, h_full, y, dy, ode, &mut sources)?;
+    run(
+        Phase::Full,
+        eta_tca,
+        eta_rsa,
+        h_full,
+        y,
+        dy,
+        ode,
+        &mut sources,
+    )?;
     // Radiation streaming.
     if eta_rsa < eta0 {
         let h = ode.last_h.max(1e-3 * eta_rsa);
@@ -188,7 +198,11 @@ pub(crate) fn solve_modes(
 ) -> Result<SourceTable> {
     let nk = ks.len();
     let job = |ws: &mut Workspace, k: f64| {
-        let n = if with_sources { nodes.needed(k, plan) } else { 0 };
+        let n = if with_sources {
+            nodes.needed(k, plan, 2.0 * plan.ode_dk_high)
+        } else {
+            0
+        };
         solve_mode(k, tl, nodes, n, plan, lay, f_b, ws)
     };
     // Largest k first: they cost most, which balances the parallel queue.
@@ -231,10 +245,7 @@ pub(crate) fn solve_modes(
                 continue;
             }
             let fac = SplineFactor::new(&ks[..len]);
-            for node in 0..nn {
-                if valid[node] != len {
-                    continue;
-                }
+            for node in (0..nn).filter(|&n| valid[n] == len) {
                 for s in 0..4 {
                     let off = (node * 4 + s) * nk;
                     fac.solve(&val[off..off + len], &mut m2[off..off + len]);
@@ -314,6 +325,10 @@ impl SourceTable {
     pub fn eval_into(&self, k: f64, n: usize, out: &mut [f64]) {
         let (j, a, b, h) = self.locate(k);
         let nk = self.k.len();
+        debug_assert!(
+            self.valid[..n].iter().all(|&v| v >= j + 2),
+            "k = {k} beyond a node's modes"
+        );
         let ca = (a * a * a - a) * h * h / 6.0;
         let cb = (b * b * b - b) * h * h / 6.0;
         for node in 0..n {

@@ -119,7 +119,10 @@ pub(crate) fn sampled_cl(
     (0..nl)
         .map(|il| {
             let (rx, ry) = (&x[il * nk..(il + 1) * nk], &y[il * nk..(il + 1) * nk]);
-            pw.iter().zip(rx.iter().zip(ry)).map(|(p, (a, b))| p * a * b).sum()
+            pw.iter()
+                .zip(rx.iter().zip(ry))
+                .map(|(p, (a, b))| p * a * b)
+                .sum()
         })
         .collect()
 }

@@ -24,8 +24,6 @@ const N_NODES: usize = 12_000;
 /// Background densities and rates at one conformal time.
 #[derive(Debug, Clone, Copy)]
 pub(crate) struct BackgroundAt {
-    /// Scale factor.
-    pub a: f64,
     /// Conformal Hubble rate aH, 1/Mpc.
     pub hub: f64,
     /// Its derivative d(aH)/d eta, 1/Mpc^2.
@@ -178,12 +176,6 @@ impl Timeline {
         self.om_n / (self.om_g + self.om_n)
     }
 
-    /// Conformal Hubble rate at scale factor a (radiation, matter, Lambda).
-    pub fn hub_of_a(&self, a: f64) -> f64 {
-        let a2 = a * a;
-        ((self.om_g + self.om_n) / a2 + (self.om_c + self.om_b) / a + self.om_l * a2).sqrt()
-    }
-
     /// Everything at conformal time `eta` (clamped to the table range).
     #[inline]
     pub fn at(&self, eta: f64) -> BackgroundAt {
@@ -224,7 +216,6 @@ impl Timeline {
         // d(aH)/d eta = -(1/2) sum_i (1 + 3 w_i) rho~_i (Friedmann; a^2 (8 pi G/3)(rho + 3P)).
         let dhub = -0.5 * (rho_c + rho_b + 2.0 * (rho_g + rho_n) - 2.0 * rho_l);
         BackgroundAt {
-            a,
             hub,
             dhub,
             rho_c,
@@ -270,7 +261,7 @@ mod tests {
             let a = 1.0 / (1.0 + z);
             let eta = bg.conformal_time_a(a);
             let b = tl.at(eta);
-            assert!((b.a / a - 1.0).abs() < 1e-8, "z={z}: a {} vs {a}", b.a);
+            assert!((b.r / (tl.r_coef / a) - 1.0).abs() < 1e-8, "z={z}: a");
             let hub = a * c.h0_over_c_mpc() * c.e2_of_a(a).sqrt();
             assert!((b.hub / hub - 1.0).abs() < 1e-8, "z={z}");
             let k = th.opacity_eta(eta);
