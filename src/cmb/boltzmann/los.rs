@@ -12,7 +12,10 @@
 //! - every l: at each (k, eta) node all j_l(x) for l <= l_cut(x) come from one call of
 //!   [`sph_bessel_all_l`] (upward/downward recurrences), with
 //!   l_cut(x) = x + 6.5 x^(1/3) + 10, beyond which j_l(x) < ~1e-6 of its maximum (Airy
-//!   decay past the turning point);
+//!   decay past the turning point). Where x > l_max + 1 every needed l lies below the
+//!   turning point, and the upward recurrence from the exact j_0, j_1 (the same that
+//!   [`sph_bessel_all_l`] uses there) runs for four nodes side by side, fused with the
+//!   accumulation (about 70% of the work at l_max = 3000);
 //! - sampled l: j_l and j_{l+1} of each sampled l from quintic Hermite tables on a uniform
 //!   x grid (values and first two derivatives at the nodes).
 
