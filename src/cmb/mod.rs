@@ -12,6 +12,7 @@
 //! - [`bispectrum`]: the Fisher engine (T, E, T+E; cumulative in l_max).
 
 pub mod bispectrum;
+pub mod boltzmann;
 pub mod experiment;
 pub mod shell;
 mod stiff;
