@@ -75,23 +75,33 @@ pub fn shell_transfer_for(
     Ok((table, radial, meta))
 }
 
-/// The full (Boltzmann) transfer table: not available until the line-of-sight solver
-/// lands; asking for it is an input error that says so.
+/// The full transfer table from the line-of-sight Boltzmann solver (read from the cache
+/// when a valid copy exists), with the radial grid of the shell model of the same
+/// thermal history, widened to the table's k range.
 ///
 /// # Errors
-/// Always, for now: [`crate::Error::Conflict`] naming `--transfer full`.
+/// Solver failures (e.g. dark-energy perturbations are not modelled: w0 != -1).
 pub fn full_transfer_for(
-    _c: &crate::cosmology::Cosmology,
-    _th: &ThermalHistory,
+    c: &crate::cosmology::Cosmology,
+    th: &ThermalHistory,
     _bg: &crate::cosmology::Background,
-    _lmax: usize,
-) -> Result<(
-    transfer::TransferTable,
-    transfer::RadialGrid,
-    serde_json::Value,
-)> {
-    Err(crate::Error::Conflict {
-        at: crate::Location::Flag("--transfer".into()),
-        message: "the line-of-sight Boltzmann solver (`full`) is not built yet; use `shell`".into(),
-    })
+    lmax: usize,
+) -> Result<(transfer::TransferTable, transfer::RadialGrid, serde_json::Value)> {
+    let settings = boltzmann::Settings { lmax: lmax.max(2), ..boltzmann::Settings::default() };
+    let (table, status) = boltzmann::cached_transfer(c, &settings, &boltzmann::CacheOptions::default())?;
+    let m = shell::ShellModel::from_thermal(th, &shell::ShellOverrides::default())?;
+    let k = table.k().to_vec();
+    let k_max = k.last().copied().unwrap_or(0.5);
+    let grid = shell::KGrid { w: table.weights().to_vec(), k, k_max: k_max.min(4.0 * m.k_damping_mpc().unwrap_or(0.14)), cutoff: shell::KCutoff::Damping };
+    let rspec = shell::RadialGridSpec { core_panel: 8.0, nodes_per_panel: 5, ..shell::RadialGridSpec::default() };
+    let radial = m.radial_grid(&grid, &rspec)?;
+    let meta = serde_json::json!({
+        "model": "full",
+        "description": "line-of-sight Boltzmann solution (synchronous gauge, massless neutrinos), unlensed",
+        "precision": settings.precision,
+        "k_nodes": table.k().len(),
+        "radial_nodes": radial.len(),
+        "cache": format!("{status:?}"),
+    });
+    Ok((table, radial, meta))
 }
