@@ -2,6 +2,7 @@
 
 pub mod background;
 pub mod run;
+pub mod spectra;
 pub mod survey;
 
 use std::path::Path;
