@@ -38,7 +38,8 @@
 //!
 //! Check (zero thickness, no damping, n_s = 1, P_Phi = (9/25) 2 pi^2 A_s / k^3):
 //! C_l = (2/pi) (9/25) 2 pi^2 A_s (1/9) Integral dk/k j_l(k chi_*)^2 and
-//! Integral_0^inf dx/x j_l(x)^2 = 1 / (2 l (l+1)) (Abramowitz & Stegun 11.4.33), so
+//! Integral_0^inf dx/x j_l(x)^2 = 1 / (2 l (l+1)) (the Weber-Schafheitlin integral of
+//! J_{l+1/2}^2 / x^2; Abramowitz & Stegun 11.4.33, equation number from memory), so
 //! l (l+1) C_l / (2 pi) = A_s / 25, the Sachs-Wolfe plateau.
 //!
 //! ## E polarization (a model)
@@ -1008,7 +1009,8 @@ mod tests {
     }
 
     /// (a) Zero thickness, no damping, n_s = 1: l(l+1) C_l / 2pi = A_s/25 (Sachs & Wolfe
-    /// 1967; Integral_0^inf dx/x j_l^2 = 1/(2l(l+1)), A&S 11.4.33). With k_max =
+    /// 1967; Integral_0^inf dx/x j_l^2 = 1/(2l(l+1)), Weber-Schafheitlin, A&S 11.4.33 from
+    /// memory). With k_max =
     /// 30 (l_max + 1/2)/chi_* the truncated fraction is 5.6e-4 at l = 1000; the
     /// deficit must equal the envelope estimate 1 - sqrt(1 - nu^2/(k_max chi_*)^2)
     /// (the k-range convergence).
