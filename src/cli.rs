@@ -48,6 +48,8 @@ pub enum Command {
     Merge(MergeArgs),
     /// Validate input files (scenario, survey, experiment, cosmology, plan).
     Check(CheckArgs),
+    /// Unlensed CMB spectra D_l^TT, D_l^EE, D_l^TE (microkelvin^2) from a transfer model.
+    Spectra(SpectraArgs),
 }
 
 /// `ngreach batch`.
@@ -236,6 +238,28 @@ pub struct CmbArgs {
     /// Worker threads (1 runs the serial path).
     #[arg(long, value_name = "N")]
     pub threads: Option<usize>,
+    /// Shared options.
+    #[command(flatten)]
+    pub common: CommonArgs,
+}
+
+/// `ngreach spectra`.
+#[derive(Debug, Args)]
+pub struct SpectraArgs {
+    /// Transfer model: `shell`, the idealized last-scattering shell (Sachs-Wolfe T,
+    /// tight-coupling E model).
+    #[arg(long, value_enum, value_name = "MODEL")]
+    pub transfer: crate::commands::spectra::TransferKind,
+    /// Highest multipole, 2..=5000.
+    #[arg(long, value_name = "L", default_value_t = 2500)]
+    pub lmax: usize,
+    /// Gaussian sigma of the shell in comoving distance, Mpc, 0..=500 (not the FWHM;
+    /// default: the visibility FWHM / 2.3548).
+    #[arg(long, value_name = "MPC", allow_hyphen_values = true)]
+    pub shell_width: Option<f64>,
+    /// Switch diffusion damping off.
+    #[arg(long)]
+    pub no_damping: bool,
     /// Shared options.
     #[command(flatten)]
     pub common: CommonArgs,

@@ -67,6 +67,16 @@ fn run(cli: Cli) -> ngreach::Result<String> {
             let (r, _) = commands::survey::survey_report(&survey, &c, &src, &opts)?;
             Ok(r.render(a.common.format))
         }
+        Command::Spectra(a) => {
+            let (c, src) = commands::resolve_cosmology(a.common.cosmology.as_deref())?;
+            let opts = commands::spectra::SpectraOptions {
+                transfer: a.transfer,
+                lmax: a.lmax,
+                shell_sigma_mpc: a.shell_width,
+                damping: !a.no_damping,
+            };
+            Ok(commands::spectra::spectra_report(&c, &src, &opts)?.render(a.common.format))
+        }
         Command::Cmb(a) => {
             set_threads(a.threads);
             let (c, src) = commands::resolve_cosmology(a.common.cosmology.as_deref())?;

@@ -7,6 +7,8 @@
 //!   and drag redshifts, the sound horizon, the acoustic angle and the diffusion damping
 //!   scale. A line-of-sight Boltzmann solver reads the opacity and visibility from the
 //!   conformal-time tables of [`ThermalHistory`].
+//! - [`shell`]: the idealized finite-thickness last-scattering shell (Sachs-Wolfe
+//!   temperature, a tight-coupling E-mode model), a cheap source of transfer tables.
 //! - [`transfer`]: transfer-function tables Delta^X_l(k), the input of the engine.
 //! - [`experiment`]: noise, beams, sky fraction.
 //! - [`bispectrum`]: the Fisher engine (T, E, T+E; cumulative in l_max).

@@ -5,6 +5,7 @@ pub mod batch;
 pub mod check;
 pub mod cmb;
 pub mod run;
+pub mod spectra;
 pub mod survey;
 
 use std::path::Path;
