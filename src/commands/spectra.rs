@@ -21,6 +21,8 @@ pub enum TransferKind {
     /// The idealized finite-thickness last-scattering shell: Sachs-Wolfe temperature and
     /// a tight-coupling E-mode model (a model, not the full physics).
     Shell,
+    /// The line-of-sight Boltzmann solution (cached): the full physics, unlensed.
+    Full,
 }
 
 /// Typed options of `ngreach spectra`.
@@ -71,8 +73,11 @@ pub fn spectra_report(c: &Cosmology, source: &str, o: &SpectraOptions) -> Result
     validate(o)?;
     let bg = Background::new(c);
     let thermal = ThermalHistory::new(c, &bg)?;
-    let model = match o.transfer {
-        TransferKind::Shell => ShellModel::from_thermal(
+    if o.transfer == TransferKind::Full {
+        return full_report(c, source, o, &thermal, &bg);
+    }
+    let model = {
+        ShellModel::from_thermal(
             &thermal,
             &ShellOverrides {
                 sigma_chi_mpc: o.shell_sigma_mpc,
@@ -82,7 +87,7 @@ pub fn spectra_report(c: &Cosmology, source: &str, o: &SpectraOptions) -> Result
                     Damping::Off
                 },
             },
-        )?,
+        )?
     };
     let spec = KGridSpec::default();
     let grid = model.k_grid(o.lmax, &spec)?;
@@ -147,6 +152,32 @@ pub fn spectra_report(c: &Cosmology, source: &str, o: &SpectraOptions) -> Result
             num(f * s.ee[l]),
             num(f * s.te[l]),
         ]);
+    }
+    Ok(r)
+}
+
+/// Spectra from the Boltzmann solver.
+fn full_report(c: &Cosmology, source: &str, o: &SpectraOptions, th: &ThermalHistory, bg: &Background) -> Result<Report> {
+    if o.shell_sigma_mpc.is_some() || !o.damping {
+        return Err(Error::Conflict {
+            at: Location::Flag("--transfer".into()),
+            message: "--shell-width and --no-damping apply to --transfer shell only".into(),
+        });
+    }
+    let (table, _radial, meta) = crate::cmb::full_transfer_for(c, th, bg, o.lmax)?;
+    let prim = Primordial::new(c);
+    let s = crate::cmb::boltzmann::Spectra::from_table(&table, &prim);
+    let t_uk = c.params().t_cmb_k * 1.0e6;
+    let mut r = Report::new("spectra");
+    r.notes = vec![
+        format!("dl_*_uk2: D_l = l(l+1) C_l / 2pi in microkelvin^2 (uK^2), unlensed, T_CMB = {} K; ell is the multipole", c.params().t_cmb_k),
+        "transfer: line-of-sight Boltzmann solution (synchronous gauge, massless neutrinos, no lensing)".into(),
+    ];
+    r.inputs = json!({"cosmology": super::cosmology_json(c, source), "transfer": o.transfer, "lmax": o.lmax, "solver": meta});
+    r.columns = ["ell", "dl_tt_uk2", "dl_ee_uk2", "dl_te_uk2"].iter().map(|s| s.to_string()).collect();
+    for l in 2..=o.lmax {
+        let f = (l * (l + 1)) as f64 / (2.0 * std::f64::consts::PI) * t_uk * t_uk;
+        r.rows.push(vec![Value::from(l as u64), num(f * s.tt[l]), num(f * s.ee[l]), num(f * s.te[l])]);
     }
     Ok(r)
 }
