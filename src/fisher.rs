@@ -202,10 +202,20 @@ impl FisherMatrix {
         Ok((0..self.len()).map(|i| c.get(i, i).sqrt()).collect())
     }
 
-    /// Marginalized error of each parameter, with `inf` for all when singular.
+    /// Marginalized errors; parameters without information (F_ii = 0) get `inf` and are
+    /// left out of the marginalization of the others (all `inf` if the rest is singular).
     pub fn sigma_marginal_or_inf(&self) -> Vec<f64> {
-        self.sigma_marginal()
-            .unwrap_or_else(|_| vec![f64::INFINITY; self.len()])
+        let informative: Vec<usize> = (0..self.len()).filter(|&i| self.get(i, i) > 0.0).collect();
+        let mut out = vec![f64::INFINITY; self.len()];
+        let names: Vec<&str> = informative.iter().map(|&i| self.names[i].as_str()).collect();
+        if let Ok(sub) = self.select(&names) {
+            if let Ok(sig) = sub.sigma_marginal() {
+                for (a, &i) in informative.iter().enumerate() {
+                    out[i] = sig[a];
+                }
+            }
+        }
+        out
     }
 
     /// Matrix inverse via Cholesky (the covariance).
