@@ -207,7 +207,10 @@ impl FisherMatrix {
     pub fn sigma_marginal_or_inf(&self) -> Vec<f64> {
         let informative: Vec<usize> = (0..self.len()).filter(|&i| self.get(i, i) > 0.0).collect();
         let mut out = vec![f64::INFINITY; self.len()];
-        let names: Vec<&str> = informative.iter().map(|&i| self.names[i].as_str()).collect();
+        let names: Vec<&str> = informative
+            .iter()
+            .map(|&i| self.names[i].as_str())
+            .collect();
         if let Ok(sub) = self.select(&names) {
             if let Ok(sig) = sub.sigma_marginal() {
                 for (a, &i) in informative.iter().enumerate() {

@@ -16,7 +16,13 @@ fn tmp(name: &str) -> PathBuf {
 
 fn run_small(out: &Path, threads: &str) -> serde_json::Value {
     let o = Command::new(bin())
-        .args(["run", "tests/data/scenario_small.toml", "--out", out.to_str().unwrap(), "--quiet"])
+        .args([
+            "run",
+            "tests/data/scenario_small.toml",
+            "--out",
+            out.to_str().unwrap(),
+            "--quiet",
+        ])
         .env("RAYON_NUM_THREADS", threads)
         .current_dir(root())
         .output()
@@ -26,8 +32,12 @@ fn run_small(out: &Path, threads: &str) -> serde_json::Value {
     serde_json::from_str(&text).unwrap()
 }
 
-fn find<'a>(rows: &'a serde_json::Value, pred: impl Fn(&serde_json::Value) -> bool) -> &'a serde_json::Value {
-    rows.as_array().unwrap().iter().find(|r| pred(r)).expect("row present")
+fn find(rows: &serde_json::Value, pred: impl Fn(&serde_json::Value) -> bool) -> &serde_json::Value {
+    rows.as_array()
+        .unwrap()
+        .iter()
+        .find(|r| pred(r))
+        .expect("row present")
 }
 
 /// PNG decodes, has the expected size and is not blank (many distinct colours).
@@ -42,15 +52,32 @@ fn check_png(p: &Path) {
     for c in px.chunks(3).step_by(7) {
         colours.insert([c[0], c[1], c[2]]);
     }
-    let dark = px.chunks(3).filter(|c| (c[0] as u32 + c[1] as u32 + c[2] as u32) < 200).count();
-    assert!(colours.len() > 20 && dark > 1000, "{} looks blank ({} colours, {dark} dark pixels)", p.display(), colours.len());
+    let dark = px
+        .chunks(3)
+        .filter(|c| (c[0] as u32 + c[1] as u32 + c[2] as u32) < 200)
+        .count();
+    assert!(
+        colours.len() > 20 && dark > 1000,
+        "{} looks blank ({} colours, {dark} dark pixels)",
+        p.display(),
+        colours.len()
+    );
 }
 
 #[test]
 fn run_writes_every_output_and_matches_the_engines() {
     let out = tmp("run");
     let j = run_small(&out, "2");
-    for key in ["version", "inputs", "rows", "crossover", "cmb", "survey", "joint", "per_bin"] {
+    for key in [
+        "version",
+        "inputs",
+        "rows",
+        "crossover",
+        "cmb",
+        "survey",
+        "joint",
+        "per_bin",
+    ] {
         assert!(j.get(key).is_some(), "summary.json lacks {key}");
     }
     for c in j["crossover"].as_array().unwrap() {
@@ -60,33 +87,92 @@ fn run_writes_every_output_and_matches_the_engines() {
         }
     }
     // Files: tables, LaTeX, figures.
-    let names: Vec<String> = std::fs::read_dir(&out).unwrap().map(|e| e.unwrap().file_name().to_string_lossy().into_owned()).collect();
-    for prefix in ["sigma_vs_kmax_local", "sigma_vs_lmax_halcyon_local", "joint_plane_halcyon_test_patch_local", "ellipses_halcyon_test_patch_local_equilateral", "per_bin_test_patch"] {
+    let names: Vec<String> = std::fs::read_dir(&out)
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+        .collect();
+    for prefix in [
+        "sigma_vs_kmax_local",
+        "sigma_vs_lmax_halcyon_local",
+        "joint_plane_halcyon_test_patch_local",
+        "ellipses_halcyon_test_patch_local_equilateral",
+        "per_bin_test_patch",
+    ] {
         for ext in ["csv", "png", "svg"] {
             let f = format!("{prefix}.{ext}");
             assert!(names.contains(&f), "missing {f}; have {names:?}");
         }
         check_png(&out.join(format!("{prefix}.png")));
         let svg = std::fs::read_to_string(out.join(format!("{prefix}.svg"))).unwrap();
-        assert!(svg.contains("<svg") && svg.matches("<text").count() > 5, "{prefix}.svg has no text");
+        assert!(
+            svg.contains("<svg") && svg.matches("<text").count() > 5,
+            "{prefix}.svg has no text"
+        );
     }
     let tex = std::fs::read_to_string(out.join("table.tex")).unwrap();
-    assert!(tex.contains("\\toprule") && tex.contains("\\bottomrule") && tex.contains("equilateral"));
-    assert!(!names.iter().any(|n| n.ends_with(".tmp") || n.contains(".tmp.")), "temporary files left: {names:?}");
+    assert!(
+        tex.contains("\\toprule") && tex.contains("\\bottomrule") && tex.contains("equilateral")
+    );
+    assert!(
+        !names
+            .iter()
+            .any(|n| n.ends_with(".tmp") || n.contains(".tmp.")),
+        "temporary files left: {names:?}"
+    );
 
     // The CMB engine run on its own gives the same numbers.
-    let c = run_json(&["cmb", "--experiment", "surveys/cmb_satellite.toml", "--lmax", "60,120,200", "--fields", "T,T+E", "--shapes", "local,equilateral", "--format", "json"]);
+    let c = run_json(&[
+        "cmb",
+        "--experiment",
+        "surveys/cmb_satellite.toml",
+        "--lmax",
+        "60,120,200",
+        "--fields",
+        "T,T+E",
+        "--shapes",
+        "local,equilateral",
+        "--format",
+        "json",
+    ]);
     for shape in ["local", "equilateral"] {
-        let a = find(&c["rows"], |r| r["lmax"] == 200 && r["fields"] == "T+E" && r["shape"] == shape)["sigma_marginal"].as_f64().unwrap();
-        let b = find(&j["cmb"], |r| r["lmax"] == 200 && r["fields"] == "T+E" && r["shape"] == shape)["sigma_marginal"].as_f64().unwrap();
+        let a = find(&c["rows"], |r| {
+            r["lmax"] == 200 && r["fields"] == "T+E" && r["shape"] == shape
+        })["sigma_marginal"]
+            .as_f64()
+            .unwrap();
+        let b = find(&j["cmb"], |r| {
+            r["lmax"] == 200 && r["fields"] == "T+E" && r["shape"] == shape
+        })["sigma_marginal"]
+            .as_f64()
+            .unwrap();
         assert!((a / b - 1.0).abs() < 1e-12, "{shape}: cmb {a} vs run {b}");
     }
     // And the survey engine.
-    let s = run_json(&["survey", "tests/data/survey_small.toml", "--kmax", "0.03,0.05,0.1", "--shapes", "local,equilateral", "--format", "json"]);
+    let s = run_json(&[
+        "survey",
+        "tests/data/survey_small.toml",
+        "--kmax",
+        "0.03,0.05,0.1",
+        "--shapes",
+        "local,equilateral",
+        "--format",
+        "json",
+    ]);
     for probe in ["P", "B", "P+B"] {
-        let a = find(&s["rows"], |r| r["kmax_h_mpc"] == 0.1 && r["probe"] == probe && r["shape"] == "local")["sigma_marginal"].as_f64().unwrap();
-        let b = find(&j["survey"], |r| r["kmax_h_mpc"] == 0.1 && r["probe"] == probe && r["shape"] == "local")["sigma_marginal"].as_f64().unwrap();
-        assert!((a / b - 1.0).abs() < 1e-12, "{probe}: survey {a} vs run {b}");
+        let a = find(&s["rows"], |r| {
+            r["kmax_h_mpc"] == 0.1 && r["probe"] == probe && r["shape"] == "local"
+        })["sigma_marginal"]
+            .as_f64()
+            .unwrap();
+        let b = find(&j["survey"], |r| {
+            r["kmax_h_mpc"] == 0.1 && r["probe"] == probe && r["shape"] == "local"
+        })["sigma_marginal"]
+            .as_f64()
+            .unwrap();
+        assert!(
+            (a / b - 1.0).abs() < 1e-12,
+            "{probe}: survey {a} vs run {b}"
+        );
     }
     // Crossover against a direct log-log interpolation of the survey rows.
     for cr in j["crossover"].as_array().unwrap() {
@@ -94,7 +180,16 @@ fn run_writes_every_output_and_matches_the_engines() {
         let target = cr["cmb_sigma"].as_f64().unwrap();
         let pts: Vec<(f64, f64)> = [0.03, 0.05, 0.1]
             .iter()
-            .map(|&k| (k, find(&j["survey"], |r| r["kmax_h_mpc"] == k && r["probe"] == probe && r["shape"] == shape)["sigma_marginal"].as_f64().unwrap_or(f64::INFINITY)))
+            .map(|&k| {
+                (
+                    k,
+                    find(&j["survey"], |r| {
+                        r["kmax_h_mpc"] == k && r["probe"] == probe && r["shape"] == shape
+                    })["sigma_marginal"]
+                        .as_f64()
+                        .unwrap_or(f64::INFINITY),
+                )
+            })
             .collect();
         let mut expect = None;
         if pts[0].1 <= target {
@@ -109,8 +204,15 @@ fn run_writes_every_output_and_matches_the_engines() {
             }
         }
         match (expect, cr["kmax_h_mpc"].as_f64()) {
-            (Some(e), Some(g)) => assert!((e / g - 1.0).abs() < 1e-9, "{probe} {shape}: {e} vs {g}"),
-            (None, None) => assert!(cr["note"].as_str().unwrap().contains("not reached below k = 0.1")),
+            (Some(e), Some(g)) => {
+                assert!((e / g - 1.0).abs() < 1e-9, "{probe} {shape}: {e} vs {g}")
+            }
+            (None, None) => assert!(
+                cr["note"]
+                    .as_str()
+                    .unwrap()
+                    .contains("not reached below k = 0.1")
+            ),
             (e, g) => panic!("{probe} {shape}: expected {e:?}, got {g:?}"),
         }
     }
@@ -138,18 +240,59 @@ fn batch(args: &[&str]) -> String {
 #[test]
 fn batch_resumes_and_shards_merge_to_the_unsharded_table() {
     let (full, s0, s1, merged) = (tmp("b-full"), tmp("b-s0"), tmp("b-s1"), tmp("b-merged"));
-    let out = batch(&["batch", "tests/data/plan_small.toml", "--out", full.to_str().unwrap()]);
-    assert!(out.contains("4 scenario(s) computed, 0 already complete"), "{out}");
-    let again = batch(&["batch", "tests/data/plan_small.toml", "--out", full.to_str().unwrap()]);
-    assert!(again.contains("0 scenario(s) computed, 4 already complete"), "{again}");
-    let a = batch(&["batch", "tests/data/plan_small.toml", "--out", s0.to_str().unwrap(), "--shard", "0/2"]);
-    assert!(a.contains("2 scenario(s) computed") && a.contains("2 left to other shards"), "{a}");
-    batch(&["batch", "tests/data/plan_small.toml", "--out", s1.to_str().unwrap(), "--shard", "1/2"]);
-    batch(&["merge", merged.to_str().unwrap(), s0.to_str().unwrap(), s1.to_str().unwrap()]);
+    let out = batch(&[
+        "batch",
+        "tests/data/plan_small.toml",
+        "--out",
+        full.to_str().unwrap(),
+    ]);
+    assert!(
+        out.contains("4 scenario(s) computed, 0 already complete"),
+        "{out}"
+    );
+    let again = batch(&[
+        "batch",
+        "tests/data/plan_small.toml",
+        "--out",
+        full.to_str().unwrap(),
+    ]);
+    assert!(
+        again.contains("0 scenario(s) computed, 4 already complete"),
+        "{again}"
+    );
+    let a = batch(&[
+        "batch",
+        "tests/data/plan_small.toml",
+        "--out",
+        s0.to_str().unwrap(),
+        "--shard",
+        "0/2",
+    ]);
+    assert!(
+        a.contains("2 scenario(s) computed") && a.contains("2 left to other shards"),
+        "{a}"
+    );
+    batch(&[
+        "batch",
+        "tests/data/plan_small.toml",
+        "--out",
+        s1.to_str().unwrap(),
+        "--shard",
+        "1/2",
+    ]);
+    batch(&[
+        "merge",
+        merged.to_str().unwrap(),
+        s0.to_str().unwrap(),
+        s1.to_str().unwrap(),
+    ]);
     let t_full = std::fs::read_to_string(full.join("batch_summary.csv")).unwrap();
     let t_merged = std::fs::read_to_string(merged.join("batch_summary.csv")).unwrap();
     assert_eq!(t_full, t_merged);
-    assert!(t_full.lines().count() > 4 && t_full.contains("area_deg2=2000"), "{t_full}");
+    assert!(
+        t_full.lines().count() > 4 && t_full.contains("area_deg2=2000"),
+        "{t_full}"
+    );
     for d in [full, s0, s1, merged] {
         std::fs::remove_dir_all(&d).ok();
     }
@@ -157,7 +300,11 @@ fn batch_resumes_and_shards_merge_to_the_unsharded_table() {
 
 #[test]
 fn check_validates_every_shipped_input() {
-    let mut files: Vec<String> = std::fs::read_dir(root().join("surveys")).unwrap().map(|e| e.unwrap().path().to_string_lossy().into_owned()).filter(|p| p.ends_with(".toml")).collect();
+    let mut files: Vec<String> = std::fs::read_dir(root().join("surveys"))
+        .unwrap()
+        .map(|e| e.unwrap().path().to_string_lossy().into_owned())
+        .filter(|p| p.ends_with(".toml"))
+        .collect();
     files.sort();
     files.push("tests/data/scenario_small.toml".into());
     files.push("tests/data/plan_small.toml".into());
@@ -169,7 +316,11 @@ fn check_validates_every_shipped_input() {
     assert!(stdout(&o).contains("valid"));
     let o = run(&["check", "tests/bad_inputs/03_negative_h.toml"]);
     assert_eq!(o.status.code(), Some(2));
-    assert!(stderr(&o).contains("03_negative_h.toml:4"), "{}", stderr(&o));
+    assert!(
+        stderr(&o).contains("03_negative_h.toml:4"),
+        "{}",
+        stderr(&o)
+    );
 }
 
 #[test]
@@ -179,12 +330,25 @@ fn bad_scenario_and_cmb_inputs_exit_2() {
     std::fs::write(&f, "[scenario]\nlmax = [5]\n\n[[cmb]]\nideal = true\n").unwrap();
     let o = run(&["run", f.to_str().unwrap(), "--out", d.to_str().unwrap()]);
     assert_eq!(o.status.code(), Some(2));
-    assert!(stderr(&o).contains("s.toml:2") && stderr(&o).contains("lmax"), "{}", stderr(&o));
+    assert!(
+        stderr(&o).contains("s.toml:2") && stderr(&o).contains("lmax"),
+        "{}",
+        stderr(&o)
+    );
     std::fs::write(&f, "[scenario]\n\n[[survey]]\nfile = \"missing.toml\"\n").unwrap();
     let o = run(&["run", f.to_str().unwrap(), "--out", d.to_str().unwrap()]);
     assert_eq!(o.status.code(), Some(2));
-    assert!(stderr(&o).contains("s.toml:4") && stderr(&o).contains("missing.toml"), "{}", stderr(&o));
-    for args in [vec!["cmb", "--lmax", "1"], vec!["cmb", "--fields", "B"], vec!["cmb", "--fsky", "2"], vec!["cmb", "--experiment", "nope.toml"]] {
+    assert!(
+        stderr(&o).contains("s.toml:4") && stderr(&o).contains("missing.toml"),
+        "{}",
+        stderr(&o)
+    );
+    for args in [
+        vec!["cmb", "--lmax", "1"],
+        vec!["cmb", "--fields", "B"],
+        vec!["cmb", "--fsky", "2"],
+        vec!["cmb", "--experiment", "nope.toml"],
+    ] {
         let o = run(&args);
         assert_eq!(o.status.code(), Some(2), "{args:?}: {}", stderr(&o));
         assert!(!stderr(&o).contains("panicked"));

@@ -88,14 +88,31 @@ pub fn full_transfer_for(
     th: &ThermalHistory,
     _bg: &crate::cosmology::Background,
     lmax: usize,
-) -> Result<(transfer::TransferTable, transfer::RadialGrid, serde_json::Value)> {
-    let settings = boltzmann::Settings { lmax: lmax.max(2), ..boltzmann::Settings::default() };
-    let (table, status) = boltzmann::cached_transfer(c, &settings, &boltzmann::CacheOptions::default())?;
+) -> Result<(
+    transfer::TransferTable,
+    transfer::RadialGrid,
+    serde_json::Value,
+)> {
+    let settings = boltzmann::Settings {
+        lmax: lmax.max(2),
+        ..boltzmann::Settings::default()
+    };
+    let (table, status) =
+        boltzmann::cached_transfer(c, &settings, &boltzmann::CacheOptions::default())?;
     let m = shell::ShellModel::from_thermal(th, &shell::ShellOverrides::default())?;
     let k = table.k().to_vec();
     let k_max = k.last().copied().unwrap_or(0.5);
-    let grid = shell::KGrid { w: table.weights().to_vec(), k, k_max: k_max.min(4.0 * m.k_damping_mpc().unwrap_or(0.14)), cutoff: shell::KCutoff::Damping };
-    let rspec = shell::RadialGridSpec { core_panel: 8.0, nodes_per_panel: 5, ..shell::RadialGridSpec::default() };
+    let grid = shell::KGrid {
+        w: table.weights().to_vec(),
+        k,
+        k_max: k_max.min(4.0 * m.k_damping_mpc().unwrap_or(0.14)),
+        cutoff: shell::KCutoff::Damping,
+    };
+    let rspec = shell::RadialGridSpec {
+        core_panel: 8.0,
+        nodes_per_panel: 5,
+        ..shell::RadialGridSpec::default()
+    };
     let radial = m.radial_grid(&grid, &rspec)?;
     let meta = serde_json::json!({
         "model": "full",

@@ -157,7 +157,13 @@ pub fn spectra_report(c: &Cosmology, source: &str, o: &SpectraOptions) -> Result
 }
 
 /// Spectra from the Boltzmann solver.
-fn full_report(c: &Cosmology, source: &str, o: &SpectraOptions, th: &ThermalHistory, bg: &Background) -> Result<Report> {
+fn full_report(
+    c: &Cosmology,
+    source: &str,
+    o: &SpectraOptions,
+    th: &ThermalHistory,
+    bg: &Background,
+) -> Result<Report> {
     if o.shell_sigma_mpc.is_some() || !o.damping {
         return Err(Error::Conflict {
             at: Location::Flag("--transfer".into()),
@@ -174,10 +180,18 @@ fn full_report(c: &Cosmology, source: &str, o: &SpectraOptions, th: &ThermalHist
         "transfer: line-of-sight Boltzmann solution (synchronous gauge, massless neutrinos, no lensing)".into(),
     ];
     r.inputs = json!({"cosmology": super::cosmology_json(c, source), "transfer": o.transfer, "lmax": o.lmax, "solver": meta});
-    r.columns = ["ell", "dl_tt_uk2", "dl_ee_uk2", "dl_te_uk2"].iter().map(|s| s.to_string()).collect();
+    r.columns = ["ell", "dl_tt_uk2", "dl_ee_uk2", "dl_te_uk2"]
+        .iter()
+        .map(|s| s.to_string())
+        .collect();
     for l in 2..=o.lmax {
         let f = (l * (l + 1)) as f64 / (2.0 * std::f64::consts::PI) * t_uk * t_uk;
-        r.rows.push(vec![Value::from(l as u64), num(f * s.tt[l]), num(f * s.ee[l]), num(f * s.te[l])]);
+        r.rows.push(vec![
+            Value::from(l as u64),
+            num(f * s.tt[l]),
+            num(f * s.ee[l]),
+            num(f * s.te[l]),
+        ]);
     }
     Ok(r)
 }

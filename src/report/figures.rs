@@ -528,6 +528,14 @@ where
     Ok(())
 }
 
+/// Delta chi^2 enclosing probability `p` for two Gaussian parameters: the inverse CDF of
+/// the chi-square distribution with 2 degrees of freedom (statrs); 2.30 for 68.27% and
+/// 6.18 for 95.45%.
+pub fn delta_chi2(p: f64) -> f64 {
+    use statrs::distribution::{ChiSquared, ContinuousCDF};
+    ChiSquared::new(2.0).map_or(-2.0 * (1.0 - p).ln(), |d| d.inverse_cdf(p))
+}
+
 /// Points of the n-sigma ellipse of a 2x2 covariance (2D Gaussian: Delta chi^2 = 2.30
 /// for 68.3%, 6.18 for 95.4%; e.g. Coe 2009, arXiv:0906.4123).
 pub fn ellipse_points(cov: [f64; 3], delta_chi2: f64, n: usize) -> Vec<(f64, f64)> {
@@ -564,8 +572,8 @@ where
         .iter()
         .filter(|e| e.1.iter().all(|v| v.is_finite()) && e.1[0] > 0.0 && e.1[2] > 0.0)
         .map(|(l, cov, c)| {
-            let one = ellipse_points(*cov, 2.30, 200);
-            let two = ellipse_points(*cov, 6.18, 200);
+            let one = ellipse_points(*cov, delta_chi2(0.682_689_492), 200);
+            let two = ellipse_points(*cov, delta_chi2(0.954_499_736), 200);
             for q in &two {
                 ext = ext.max(q.0.abs());
                 eyt = eyt.max(q.1.abs());
@@ -590,7 +598,9 @@ where
         .y_desc(&p.y_label)
         .label_style(font(26))
         .axis_desc_style(font(30))
-        .light_line_style(RGBColor(235, 235, 235))
+        .x_label_formatter(&|v| tick(*v, false))
+        .y_label_formatter(&|v| tick(*v, false))
+        .light_line_style(WHITE)
         .draw()
         .map_err(draw_err)?;
     for (label, ci, one, two) in &curves {
@@ -632,6 +642,13 @@ where
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn chi_square_levels() {
+        // For 2 degrees of freedom the CDF is 1 - exp(-x/2) exactly.
+        assert!((delta_chi2(0.682_689_492) - 2.2957).abs() < 1e-3);
+        assert!((delta_chi2(0.954_499_736) - 6.1801).abs() < 1e-3);
+    }
 
     #[test]
     fn ellipse_has_the_right_extent() {

@@ -724,7 +724,8 @@ pub fn terminal_summary(r: &RunResult) -> String {
         if s.chars().count() <= n {
             s.to_string()
         } else {
-            s.chars().take(n - 1).collect::<String>() + "."
+            let first = s.split_whitespace().next().unwrap_or(s);
+            first.chars().take(n).collect()
         }
     };
     for s in &r.surveys {
