@@ -25,6 +25,16 @@ pub use thermal::{Reionization, ThermalHistory, ThermalSummary};
 
 use crate::error::Result;
 
+/// The radial grid used for bispectra: core panels of 8 pi / k_max with 5 nodes (see the
+/// convergence note in [`shell_transfer_for`]).
+fn bispectrum_radial_spec() -> shell::RadialGridSpec {
+    shell::RadialGridSpec {
+        core_panel: 8.0,
+        nodes_per_panel: 5,
+        ..shell::RadialGridSpec::default()
+    }
+}
+
 /// The shell-model transfer table, radial grid and a description, for a scenario or a
 /// command: width `None` takes the visibility function's, damping on takes the thermal
 /// k_D.
@@ -60,12 +70,7 @@ pub fn shell_transfer_for(
     };
     let grid = m.k_grid(lmax, &kspec)?;
     let table = m.transfer_table_on(lmax, &grid)?;
-    let rspec = shell::RadialGridSpec {
-        core_panel: 8.0,
-        nodes_per_panel: 5,
-        ..shell::RadialGridSpec::default()
-    };
-    let radial = m.radial_grid(&grid, &rspec)?;
+    let radial = m.radial_grid(&grid, &bispectrum_radial_spec())?;
     let meta = serde_json::json!({
         "model": "shell",
         "description": "finite-thickness Sachs-Wolfe shell with diffusion damping; tight-coupling E-mode model",
@@ -108,12 +113,7 @@ pub fn full_transfer_for(
         k_max: k_max.min(4.0 * m.k_damping_mpc().unwrap_or(0.14)),
         cutoff: shell::KCutoff::Damping,
     };
-    let rspec = shell::RadialGridSpec {
-        core_panel: 8.0,
-        nodes_per_panel: 5,
-        ..shell::RadialGridSpec::default()
-    };
-    let radial = m.radial_grid(&grid, &rspec)?;
+    let radial = m.radial_grid(&grid, &bispectrum_radial_spec())?;
     let meta = serde_json::json!({
         "model": "full",
         "description": "line-of-sight Boltzmann solution (synchronous gauge, massless neutrinos), unlensed",

@@ -140,20 +140,26 @@ pub fn spectra_report(c: &Cosmology, source: &str, o: &SpectraOptions) -> Result
     if let Some(kd) = p.k_damping_mpc {
         r.summary.push(("k_damping_mpc".into(), num(kd)));
     }
+    dl_rows(&mut r, o.lmax, t_uk, &s.tt, &s.ee, &s.te);
+    Ok(r)
+}
+
+/// The contract columns `ell,dl_tt_uk2,dl_ee_uk2,dl_te_uk2`: D_l = l(l+1) C_l / 2pi in
+/// microkelvin^2 for l = 2..=lmax.
+fn dl_rows(r: &mut Report, lmax: usize, t_uk: f64, tt: &[f64], ee: &[f64], te: &[f64]) {
     r.columns = ["ell", "dl_tt_uk2", "dl_ee_uk2", "dl_te_uk2"]
         .iter()
         .map(|s| s.to_string())
         .collect();
-    for l in 2..=o.lmax {
+    for l in 2..=lmax {
         let f = (l * (l + 1)) as f64 / (2.0 * std::f64::consts::PI) * t_uk * t_uk;
         r.rows.push(vec![
             Value::from(l as u64),
-            num(f * s.tt[l]),
-            num(f * s.ee[l]),
-            num(f * s.te[l]),
+            num(f * tt[l]),
+            num(f * ee[l]),
+            num(f * te[l]),
         ]);
     }
-    Ok(r)
 }
 
 /// Spectra from the Boltzmann solver.
@@ -180,19 +186,7 @@ fn full_report(
         "transfer: line-of-sight Boltzmann solution (synchronous gauge, massless neutrinos, no lensing)".into(),
     ];
     r.inputs = json!({"cosmology": super::cosmology_json(c, source), "transfer": o.transfer, "lmax": o.lmax, "solver": meta});
-    r.columns = ["ell", "dl_tt_uk2", "dl_ee_uk2", "dl_te_uk2"]
-        .iter()
-        .map(|s| s.to_string())
-        .collect();
-    for l in 2..=o.lmax {
-        let f = (l * (l + 1)) as f64 / (2.0 * std::f64::consts::PI) * t_uk * t_uk;
-        r.rows.push(vec![
-            Value::from(l as u64),
-            num(f * s.tt[l]),
-            num(f * s.ee[l]),
-            num(f * s.te[l]),
-        ]);
-    }
+    dl_rows(&mut r, o.lmax, t_uk, &s.tt, &s.ee, &s.te);
     Ok(r)
 }
 
