@@ -152,8 +152,8 @@ fn missing_file_and_bad_flags() {
 }
 
 #[test]
-fn run_demo_says_what_is_missing() {
-    let o = run(&["run"]);
-    assert!(o.status.success(), "{}", stderr(&o));
-    assert!(stdout(&o).contains("not built yet"));
+fn run_rejects_a_missing_scenario_file() {
+    let o = run(&["run", "no/such/scenario.toml", "--quiet"]);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(stderr(&o).contains("no/such/scenario.toml"), "{}", stderr(&o));
 }
