@@ -155,5 +155,9 @@ fn missing_file_and_bad_flags() {
 fn run_rejects_a_missing_scenario_file() {
     let o = run(&["run", "no/such/scenario.toml", "--quiet"]);
     assert_eq!(o.status.code(), Some(2));
-    assert!(stderr(&o).contains("no/such/scenario.toml"), "{}", stderr(&o));
+    assert!(
+        stderr(&o).contains("no/such/scenario.toml"),
+        "{}",
+        stderr(&o)
+    );
 }
