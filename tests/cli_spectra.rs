@@ -133,7 +133,7 @@ fn bad_values_exit_2_with_a_clear_message() {
     }
     // Unknown model, missing model, bad number: clap's own usage errors, also exit 2.
     for a in [
-        vec!["spectra", "--transfer", "full"],
+        vec!["spectra", "--transfer", "warp"],
         vec!["spectra"],
         vec!["spectra", "--transfer", "shell", "--lmax", "abc"],
     ] {
