@@ -1,9 +1,9 @@
-//! Shared numerical building blocks: Gauss-Legendre quadrature, interpolation tables and
-//! an adaptive ODE integrator. Everything here is planned once and evaluated many times
-//! without allocation.
+//! Shared numerical building blocks: Gauss-Legendre quadrature and interpolation tables.
+//! Everything here is planned once and evaluated many times without allocation. (The ODE
+//! solvers live with their users: `cmb::stiff` for recombination, `cmb::boltzmann`'s
+//! Dormand-Prince for the perturbations.)
 
 pub mod interp;
-pub mod ode;
 pub mod quad;
 
 pub use interp::{CubicSpline, UniformHermite};
