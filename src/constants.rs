@@ -27,7 +27,7 @@ pub const HE_TO_H_MASS: f64 = 4.002_602 / 1.007_825_032;
 /// Neutrino to photon energy density per effective species: (7/8)(4/11)^(4/3).
 pub const NEUTRINO_PER_SPECIES: f64 = 0.227_107_317_660_239_4;
 /// Spherical collapse threshold delta_c used in the scale-dependent bias.
-pub const DELTA_C: f64 = 1.686;
+pub const DELTA_C: f64 = 1.686; // spherical collapse in EdS, 3 (12 pi)^(2/3) / 20 (Gunn & Gott 1972)
 /// Seconds per year (Julian).
 pub const YEAR_S: f64 = 365.25 * 86_400.0;
 /// Arcminute in radians.

@@ -821,6 +821,28 @@ pub(crate) mod tests {
         f.iter().map(|v| v * f_sky / 6.0).collect()
     }
 
+    /// The plan for local f_NL, temperature only, on one l_max.
+    fn local_t_plan(
+        tr: &TransferTable,
+        radial: &RadialGrid,
+        exp: &Experiment,
+        prim: Primordial,
+        lmax: usize,
+        parallel: bool,
+    ) -> BispectrumPlan {
+        BispectrumPlan::new(&CmbFisherInput {
+            transfer: tr,
+            primordial: prim,
+            shapes: &[Shape::Local],
+            experiment: exp,
+            t_cmb_k: 2.7255,
+            lmax_grid: &[lmax],
+            field_sets: &[FieldSet::T],
+            radial,
+            parallel,
+        })
+    }
+
     fn shapes() -> Vec<Shape> {
         ["local", "equilateral", "orthogonal", "delta=0.5"]
             .iter()
@@ -882,20 +904,8 @@ pub(crate) mod tests {
         let tr = toy_table_k(lmax, None, false, 20.0);
         let radial = toy_radial(900.0, 240);
         let exp = Experiment::ideal(lmax);
-        let sh = vec![Shape::Local];
         let prim = Primordial::from_values(2.1e-9, 1.0, 0.05);
-        let inp = CmbFisherInput {
-            transfer: &tr,
-            primordial: prim,
-            shapes: &sh,
-            experiment: &exp,
-            t_cmb_k: 2.7255,
-            lmax_grid: &[lmax],
-            field_sets: &[FieldSet::T],
-            radial: &radial,
-            parallel: true,
-        };
-        let plan = BispectrumPlan::new(&inp);
+        let plan = local_t_plan(&tr, &radial, &exp, prim, lmax, true);
         let cl = tr.cl(&prim, 0, 0);
         // SW plateau check of the toy table itself: l(l+1) C_l / 2 pi = A_s / 25.
         for l in [2usize, 10, 40] {
@@ -925,20 +935,8 @@ pub(crate) mod tests {
         let tr = toy_table(lmax, Some(0.01), false);
         let radial = toy_radial(500.0, 6);
         let exp = experiment(lmax, false);
-        let sh = vec![Shape::Local];
         let prim = Primordial::from_values(2.1e-9, 0.965, 0.05);
-        let inp = CmbFisherInput {
-            transfer: &tr,
-            primordial: prim,
-            shapes: &sh,
-            experiment: &exp,
-            t_cmb_k: 2.7255,
-            lmax_grid: &[lmax],
-            field_sets: &[FieldSet::T],
-            radial: &radial,
-            parallel: false,
-        };
-        let plan = BispectrumPlan::new(&inp);
+        let plan = local_t_plan(&tr, &radial, &exp, prim, lmax, false);
         let cl = tr.cl(&prim, 0, 0);
         let mut restricted = 0.0;
         for l1 in 2..=lmax {

@@ -126,6 +126,23 @@ fn draw_err<E: std::fmt::Display>(e: E) -> Error {
 
 type Area<'a, DB> = DrawingArea<DB, Shift>;
 
+/// The legend box every figure uses: upper right, translucent white, thin grey border.
+fn draw_legend<'a, DB, CT>(chart: &mut ChartContext<'a, DB, CT>) -> Result<()>
+where
+    DB: DrawingBackend + 'a,
+    DB::ErrorType: 'static,
+    CT: plotters::coord::CoordTranslate,
+{
+    chart
+        .configure_series_labels()
+        .label_font((FAMILY, 24).into_font())
+        .background_style(WHITE.mix(0.85))
+        .border_style(RGBColor(180, 180, 180))
+        .position(SeriesLabelPosition::UpperRight)
+        .draw()
+        .map_err(draw_err)
+}
+
 /// Tick label: compact numbers; on log axes only 1, 2 and 5 times a power of ten.
 fn tick(v: f64, log: bool) -> String {
     if !v.is_finite() {
@@ -248,14 +265,7 @@ where
                     .map_err(draw_err)?;
             }
             if !p.series.is_empty() || !p.bands.is_empty() {
-                chart
-                    .configure_series_labels()
-                    .label_font(font(24))
-                    .background_style(WHITE.mix(0.85))
-                    .border_style(RGBColor(180, 180, 180))
-                    .position(SeriesLabelPosition::UpperRight)
-                    .draw()
-                    .map_err(draw_err)?;
+                draw_legend(&mut chart)?;
             }
         }};
     }
@@ -488,14 +498,7 @@ where
             chart
                 .draw_series(pts.iter().map(|&q| Circle::new(q, 6, c.filled())))
                 .map_err(draw_err)?;
-            chart
-                .configure_series_labels()
-                .label_font(font(24))
-                .background_style(WHITE.mix(0.85))
-                .border_style(RGBColor(180, 180, 180))
-                .position(SeriesLabelPosition::UpperRight)
-                .draw()
-                .map_err(draw_err)?;
+            draw_legend(&mut chart)?;
         }
     }
     // Colour bar.
@@ -627,14 +630,7 @@ where
             .map_err(draw_err)?;
     }
     if !curves.is_empty() {
-        chart
-            .configure_series_labels()
-            .label_font(font(24))
-            .background_style(WHITE.mix(0.85))
-            .border_style(RGBColor(180, 180, 180))
-            .position(SeriesLabelPosition::UpperRight)
-            .draw()
-            .map_err(draw_err)?;
+        draw_legend(&mut chart)?;
     }
     Ok(())
 }
