@@ -42,7 +42,7 @@ pub enum KmaxRule {
     /// common practice).
     Growth,
     /// k_max(z) capped where sigma(R = pi / (2 k), z) of the linear field reaches
-    /// `sigma_nl` (common practice, e.g. Sefusatti & Komatsu 2007 use sigma = 0.5).
+    /// `sigma_nl` (common practice; sigma = 0.5 as in Sefusatti & Komatsu 2007, from memory).
     Sigma,
 }
 
