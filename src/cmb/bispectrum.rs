@@ -158,28 +158,52 @@ impl BispectrumPlan {
         let nf = fields.len();
         let ne = exponents.len();
         let nl = lmax + 1;
-        // X[r][e][f][l], computed per r in parallel, then transposed.
+        // X[r][e][f][l], computed per r in parallel, then transposed. At x = k r every
+        // l beyond l_cut(x) is dropped (|j_l| < 1e-6 of its maximum there); where
+        // x > l_max + 1 the upward recurrence is stable for every l and runs for four k
+        // side by side, fused with the accumulation (as in the line-of-sight module).
         let prim = inp.primordial;
+        let coefs: Vec<Vec<f64>> = tr
+            .k()
+            .iter()
+            .zip(tr.weights())
+            .map(|(&k, &w)| {
+                let pk = prim.p_phi(k);
+                exponents
+                    .iter()
+                    .map(|&p| 2.0 / std::f64::consts::PI * w * k * k * pk.powf(p))
+                    .collect()
+            })
+            .collect();
         let per_r = |ir: usize| -> Vec<f64> {
             let r = inp.radial.r[ir];
             let mut out = vec![0.0; ne * nf * nl];
-            let mut j = vec![0.0; tr.lmax() + 1];
-            let mut coef = vec![0.0; ne];
-            for (ik, (&k, &w)) in tr.k().iter().zip(tr.weights()).enumerate() {
-                crate::special::bessel::sph_bessel_all_l(lmax as u32, k * r, &mut j[..nl]);
-                let pk = prim.p_phi(k);
-                for (e, c) in coef.iter_mut().enumerate() {
-                    *c = 2.0 / std::f64::consts::PI * w * k * k * pk.powf(exponents[e]);
+            let mut j = vec![0.0; nl + 1];
+            let mut lanes: Vec<usize> = Vec::with_capacity(XLANES);
+            for ik in 0..tr.k().len() {
+                let x = tr.k()[ik] * r;
+                if x >= (lmax + 2) as f64 {
+                    lanes.push(ik);
+                    if lanes.len() == XLANES {
+                        radial_lanes(tr, &coefs, &lanes, r, nl, &mut out);
+                        lanes.clear();
+                    }
+                    continue;
                 }
+                let lc = crate::special::bessel::l_cut(x).min(lmax);
+                crate::special::bessel::sph_bessel_all_l(lc as u32, x, &mut j[..=lc]);
                 for f in 0..nf {
-                    let g = &tr.row(f, ik)[..nl];
-                    for (e, &c) in coef.iter().enumerate() {
-                        let o = &mut out[(e * nf + f) * nl..(e * nf + f + 1) * nl];
-                        for l in 0..nl {
-                            o[l] += c * g[l] * j[l];
+                    let g = &tr.row(f, ik)[..=lc];
+                    for (e, &c) in coefs[ik].iter().enumerate() {
+                        let o = &mut out[(e * nf + f) * nl..(e * nf + f) * nl + lc + 1];
+                        for ((o, &g), &jl) in o.iter_mut().zip(g).zip(&j[..=lc]) {
+                            *o += c * g * jl;
                         }
                     }
                 }
+            }
+            if !lanes.is_empty() {
+                radial_lanes(tr, &coefs, &lanes, r, nl, &mut out);
             }
             out
         };
@@ -280,6 +304,71 @@ impl BispectrumPlan {
     /// Shapes' term lists (coefficient, exponent indices).
     pub fn terms(&self) -> &[Vec<(f64, [usize; 3])>] {
         &self.terms
+    }
+}
+
+/// Lanes of the fused radial-function kernel.
+const XLANES: usize = 4;
+
+/// Adds the contributions of up to four k nodes (all with k r > l_max + 1) to the radial
+/// functions at r: out[(e nf + f) nl + l] += c_e(k) Delta^f_l(k) j_l(k r), with j_l from
+/// the upward recurrence from the exact j_0, j_1, run for the lanes side by side.
+fn radial_lanes(
+    tr: &TransferTable,
+    coefs: &[Vec<f64>],
+    lanes: &[usize],
+    r: f64,
+    nl: usize,
+    out: &mut [f64],
+) {
+    let nf = tr.fields().len();
+    let ne = coefs.first().map_or(0, Vec::len);
+    let n = lanes.len();
+    let mut ix = [1e-6; XLANES];
+    let mut jm = [0.0; XLANES];
+    let mut jc = [0.0; XLANES];
+    for (g, &ik) in lanes.iter().enumerate() {
+        let x = tr.k()[ik] * r;
+        let (s, c) = x.sin_cos();
+        ix[g] = 1.0 / x;
+        jm[g] = s / x;
+        jc[g] = (s / x - c) / x;
+    }
+    // j_l for l = 0, 1, then upward; lanes beyond n carry zeros.
+    // Transfer rows per lane and field (tables have one or two fields).
+    let empty: &[f64] = &[];
+    let mut rows = [[empty; 2]; XLANES];
+    for (g, &ik) in lanes.iter().enumerate() {
+        rows[g] = [tr.row(0, ik), tr.row(nf.saturating_sub(1), ik)];
+    }
+    let mut jl = [0.0; XLANES];
+    for l in 0..nl {
+        match l {
+            0 => jl[..n].copy_from_slice(&jm[..n]),
+            1 => jl[..n].copy_from_slice(&jc[..n]),
+            _ => {
+                let tl = (2 * l - 1) as f64;
+                for g in 0..n {
+                    let jp = tl * ix[g] * jc[g] - jm[g];
+                    jm[g] = jc[g];
+                    jc[g] = jp;
+                    jl[g] = jp;
+                }
+            }
+        }
+        for f in 0..nf {
+            let mut d = [0.0; XLANES];
+            for g in 0..n {
+                d[g] = rows[g][f.min(1)][l] * jl[g];
+            }
+            for e in 0..ne {
+                let mut acc = 0.0;
+                for g in 0..n {
+                    acc += coefs[lanes[g]][e] * d[g];
+                }
+                out[(e * nf + f) * nl + l] += acc;
+            }
+        }
     }
 }
 

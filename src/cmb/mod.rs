@@ -27,7 +27,7 @@ use crate::error::Result;
 
 /// The radial grid used for bispectra: core panels of 8 pi / k_max with 5 nodes (see the
 /// convergence note in [`shell_transfer_for`]).
-fn bispectrum_radial_spec() -> shell::RadialGridSpec {
+pub fn bispectrum_radial_spec() -> shell::RadialGridSpec {
     shell::RadialGridSpec {
         core_panel: 8.0,
         nodes_per_panel: 5,
@@ -82,6 +82,34 @@ pub fn shell_transfer_for(
     Ok((table, radial, meta))
 }
 
+/// The radial grid for bispectra of a full (Boltzmann) transfer table (`spec`: usually
+/// [`bispectrum_radial_spec`]): the shell model's grid for the same thermal history with
+/// its panels set by k = 4 k_D (beyond which the damped transfer functions no longer
+/// matter), whatever the table's k range. Tying the panels to a smaller table k range
+/// (low l_max) would widen them and, through the shell model's rule for an undamped
+/// kernel, drop the outer panels that carry the ISW and reionization parts of the radial
+/// functions: at l_max = 1000 that moved sigma(f_NL orthogonal, T) by 7% (measured).
+/// With this grid, doubling the nodes per panel or halving the panels changes
+/// sigma(f_NL) by < 0.4% at l_max = 1000 and 2500 (measured; T, E, T+E, three shapes).
+///
+/// # Errors
+/// Invalid shell parameters.
+pub fn radial_grid_for_table(
+    th: &ThermalHistory,
+    table: &transfer::TransferTable,
+    spec: &shell::RadialGridSpec,
+) -> Result<transfer::RadialGrid> {
+    let m = shell::ShellModel::from_thermal(th, &shell::ShellOverrides::default())?;
+    let k = table.k().to_vec();
+    let grid = shell::KGrid {
+        w: table.weights().to_vec(),
+        k,
+        k_max: 4.0 * m.k_damping_mpc().unwrap_or(0.14),
+        cutoff: shell::KCutoff::Damping,
+    };
+    m.radial_grid(&grid, spec)
+}
+
 /// The full transfer table from the line-of-sight Boltzmann solver (read from the cache
 /// when a valid copy exists), with the radial grid of the shell model of the same
 /// thermal history, widened to the table's k range.
@@ -104,16 +132,7 @@ pub fn full_transfer_for(
     };
     let (table, status) =
         boltzmann::cached_transfer(c, &settings, &boltzmann::CacheOptions::default())?;
-    let m = shell::ShellModel::from_thermal(th, &shell::ShellOverrides::default())?;
-    let k = table.k().to_vec();
-    let k_max = k.last().copied().unwrap_or(0.5);
-    let grid = shell::KGrid {
-        w: table.weights().to_vec(),
-        k,
-        k_max: k_max.min(4.0 * m.k_damping_mpc().unwrap_or(0.14)),
-        cutoff: shell::KCutoff::Damping,
-    };
-    let radial = m.radial_grid(&grid, &bispectrum_radial_spec())?;
+    let radial = radial_grid_for_table(th, &table, &bispectrum_radial_spec())?;
     let meta = serde_json::json!({
         "model": "full",
         "description": "line-of-sight Boltzmann solution (synchronous gauge, massless neutrinos), unlensed",

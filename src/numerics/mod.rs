@@ -3,7 +3,6 @@
 //! solvers live with their users: `cmb::stiff` for recombination, `cmb::boltzmann`'s
 //! Dormand-Prince for the perturbations.)
 
-pub mod eigen;
 pub mod interp;
 pub mod quad;
 

@@ -438,6 +438,14 @@ fn debye(nu: f64, x: f64) -> Option<f64> {
 // Batch over l
 // ---------------------------------------------------------------------------------------
 
+/// Last multipole that matters at argument x: l_cut(x) = x + 6.5 x^(1/3) + 10, beyond
+/// which |j_l(x)| < ~1e-6 of its largest value over l (Airy decay past the turning point
+/// l ~ x; checked in the line-of-sight module's tests).
+#[inline]
+pub fn l_cut(x: f64) -> usize {
+    (x + 6.5 * x.cbrt() + 10.0) as usize
+}
+
 /// Fills `out[l] = j_l(x)` for every l in 0..=lmax at one x, in O(lmax) operations and
 /// without allocating: upward recurrence to l = floor(x), downward ratios (continued
 /// fraction at the top) above it, zeros where Kapteyn's bound is below 1e-300 (see the

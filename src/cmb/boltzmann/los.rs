@@ -25,11 +25,7 @@ use super::grids::{Nodes, Plan, taper};
 use super::modes::SourceTable;
 use crate::special::sph_bessel_all_l;
 
-/// Last multipole that matters at argument x (see module docs).
-#[inline]
-pub(crate) fn l_cut(x: f64) -> usize {
-    (x + 6.5 * x.cbrt() + 10.0) as usize
-}
+pub(crate) use crate::special::bessel::l_cut;
 
 /// What the projection of one k needs.
 pub(crate) struct Projection<'a> {
