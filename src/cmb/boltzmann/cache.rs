@@ -36,7 +36,7 @@ use crate::error::Result;
 const MAGIC: &[u8; 8] = b"NGRTRANS";
 const FORMAT_VERSION: u32 = 1;
 /// Bumped whenever the solver's numerics change what it computes.
-const SOLVER_VERSION: u64 = 1;
+const SOLVER_VERSION: u64 = 2;
 const HEADER_LEN: usize = 40;
 
 /// Where (and whether) to cache transfer tables.
