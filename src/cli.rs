@@ -187,6 +187,10 @@ pub struct SurveyArgs {
         default_value = "local,equilateral,orthogonal"
     )]
     pub shapes: Vec<String>,
+    /// Linear matter power: the Eisenstein-Hu fit, or the Boltzmann solver's z = 0 matter
+    /// transfer function (a matter-only solve, about a second).
+    #[arg(long, value_enum, value_name = "MODEL", default_value_t = crate::scenario::LinearPowerChoice::EisensteinHu)]
+    pub linear_power: crate::scenario::LinearPowerChoice,
     /// Worker threads (1 runs the serial path).
     #[arg(long, value_name = "N")]
     pub threads: Option<usize>,

@@ -59,6 +59,7 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                 kmax_h_mpc: a.kmax,
                 probes: commands::survey::parse_probes(&a.probes)?,
                 shapes: commands::survey::parse_shapes(&a.shapes, "--shapes")?,
+                linear_power: a.linear_power,
                 settings: ngreach::survey::fisher::SurveySettings {
                     parallel: a.threads != Some(1),
                     ..Default::default()

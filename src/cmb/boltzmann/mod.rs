@@ -447,6 +447,34 @@ impl BoltzmannSolver {
     }
 }
 
+/// The z = 0 matter transfer function of `cosmo` alone, for the survey side: a
+/// matter-only solve (thermal history, then the modes of the smallest CMB plan, l_max =
+/// 2, and the extra matter modes up to `k_max_mpc`, without any line-of-sight
+/// projection). Same normalization and accuracy as [`BoltzmannSolver::matter_transfer`]
+/// (0.11% against camb for 1e-4 < k < 1 h/Mpc); about a second on two cores (measured
+/// 0.8 s for k_max = 1.5 /Mpc).
+///
+/// # Errors
+/// As [`ThermalHistory::new`] and [`BoltzmannSolver::new`] (e.g. dark energy other than
+/// a cosmological constant); [`Error::OutOfRange`] for `k_max_mpc` outside [0.01, 20].
+pub fn matter_transfer_of(
+    cosmo: &Cosmology,
+    precision: u32,
+    k_max_mpc: f64,
+    parallel: bool,
+) -> Result<CubicSpline> {
+    let settings = Settings {
+        precision,
+        lmax: 2,
+        k_max_matter_mpc: k_max_mpc,
+        parallel,
+    };
+    settings.validate()?;
+    let bg = Background::new(cosmo);
+    let th = ThermalHistory::new(cosmo, &bg)?;
+    BoltzmannSolver::new(cosmo, &th, &bg, settings)?.matter_transfer()
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
