@@ -12,6 +12,7 @@ use std::sync::{Arc, Mutex, OnceLock};
 use serde_json::{Value, json};
 
 use crate::cmb::bispectrum::{BispectrumPlan, CmbFisherInput, CmbForecast, cmb_fisher_with_plan};
+use crate::cmb::boltzmann::CacheOptions;
 use crate::cmb::experiment::Experiment;
 use crate::cmb::thermal::ThermalHistory;
 use crate::cmb::transfer::{RadialGrid, TransferTable};
@@ -55,12 +56,14 @@ pub struct RunResult {
 }
 
 /// Settings of a run.
-#[derive(Debug, Clone, Copy)]
+#[derive(Debug, Clone)]
 pub struct RunSettings {
     /// Parallel outer loops.
     pub parallel: bool,
     /// Survey engine settings.
     pub survey: SurveySettings,
+    /// Transfer-table cache of the Boltzmann solver (`transfer = "full"`).
+    pub cache: CacheOptions,
 }
 
 impl Default for RunSettings {
@@ -68,11 +71,13 @@ impl Default for RunSettings {
         Self {
             parallel: true,
             survey: SurveySettings::default(),
+            cache: CacheOptions::default(),
         }
     }
 }
 
-/// Builds the CMB transfer functions and radial grid the scenario asks for.
+/// Builds the CMB transfer functions and radial grid the scenario asks for (the full
+/// model through the transfer-table cache `cache`).
 ///
 /// # Errors
 /// Thermal-history or transfer failures.
@@ -80,13 +85,14 @@ pub fn cmb_transfer(
     sc: &Scenario,
     bg: &Background,
     lmax: usize,
+    cache: &CacheOptions,
 ) -> Result<(TransferTable, RadialGrid, Value)> {
     let th = ThermalHistory::new(&sc.cosmology, bg)?;
     match sc.transfer {
         TransferChoice::Shell => {
             crate::cmb::shell_transfer_for(&th, sc.shell_width_mpc, sc.damping, lmax)
         }
-        TransferChoice::Full => crate::cmb::full_transfer_for(&sc.cosmology, &th, bg, lmax),
+        TransferChoice::Full => crate::cmb::full_transfer_for(&sc.cosmology, &th, bg, lmax, cache),
     }
 }
 
@@ -207,7 +213,8 @@ impl CmbCache {
         )
     }
 
-    /// The pieces for a scenario, computed on first use.
+    /// The pieces for a scenario, computed on first use (the full transfer model reads
+    /// and writes the on-disk transfer-table cache `settings.cache`).
     ///
     /// # Errors
     /// The stage's failure (reported to every scenario that shares the key).
@@ -215,12 +222,12 @@ impl CmbCache {
         &self,
         sc: &Scenario,
         bg: &Background,
-        parallel: bool,
+        settings: &RunSettings,
         progress: &mut dyn FnMut(&str),
     ) -> Result<Arc<CmbPieces>> {
         self.pieces
             .get(Self::key(sc), "CMB transfer functions", || {
-                build_cmb_pieces(sc, bg, parallel, progress)
+                build_cmb_pieces(sc, bg, settings, progress)
             })
     }
 
@@ -245,13 +252,14 @@ impl CmbCache {
 fn build_cmb_pieces(
     sc: &Scenario,
     bg: &Background,
-    parallel: bool,
+    settings: &RunSettings,
     progress: &mut dyn FnMut(&str),
 ) -> Result<CmbPieces> {
     let c = &sc.cosmology;
+    let parallel = settings.parallel;
     let lmax = *sc.lmax.last().unwrap_or(&2000);
     progress("CMB transfer functions");
-    let (table, radial, meta) = cmb_transfer(sc, bg, lmax)?;
+    let (table, radial, meta) = cmb_transfer(sc, bg, lmax, &settings.cache)?;
     progress("CMB radial functions");
     let inp = CmbFisherInput {
         transfer: &table,
@@ -301,7 +309,7 @@ pub fn run_scenario_cached(
     let mut cmb = Vec::new();
     let mut transfer_meta = Value::Null;
     if !sc.experiments.is_empty() {
-        let pieces = cache.get(sc, &bg, settings.parallel, progress)?;
+        let pieces = cache.get(sc, &bg, settings, progress)?;
         transfer_meta = pieces.meta.clone();
         for e in &sc.experiments {
             progress(&format!("CMB bispectrum Fisher: {}", e.name));

@@ -83,8 +83,9 @@ pub fn shell_transfer_for(
 }
 
 /// The full transfer table from the line-of-sight Boltzmann solver (read from the cache
-/// when a valid copy exists), with the radial grid of the shell model of the same
-/// thermal history, widened to the table's k range.
+/// `cache` when a valid copy exists, stored there otherwise), with the radial grid of
+/// the shell model of the same thermal history, widened to the table's k range. The
+/// description records what the cache did (`cache.status`: hit, stored, ...).
 ///
 /// # Errors
 /// Solver failures (e.g. dark-energy perturbations are not modelled: w0 != -1).
@@ -93,6 +94,7 @@ pub fn full_transfer_for(
     th: &ThermalHistory,
     _bg: &crate::cosmology::Background,
     lmax: usize,
+    cache: &boltzmann::CacheOptions,
 ) -> Result<(
     transfer::TransferTable,
     transfer::RadialGrid,
@@ -102,8 +104,7 @@ pub fn full_transfer_for(
         lmax: lmax.max(2),
         ..boltzmann::Settings::default()
     };
-    let (table, status) =
-        boltzmann::cached_transfer(c, &settings, &boltzmann::CacheOptions::default())?;
+    let (table, status) = boltzmann::cached_transfer(c, &settings, cache)?;
     let m = shell::ShellModel::from_thermal(th, &shell::ShellOverrides::default())?;
     let k = table.k().to_vec();
     let k_max = k.last().copied().unwrap_or(0.5);
@@ -120,7 +121,7 @@ pub fn full_transfer_for(
         "precision": settings.precision,
         "k_nodes": table.k().len(),
         "radial_nodes": radial.len(),
-        "cache": format!("{status:?}"),
+        "cache": status.to_json(),
     });
     Ok((table, radial, meta))
 }
