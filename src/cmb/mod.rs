@@ -1,7 +1,9 @@
 //! CMB physics and the CMB bispectrum Fisher engine.
 //!
 //! - [`thermal`]: the thermal history of the photon-baryon plasma, i.e. hydrogen and
-//!   helium recombination (effective three-level atom of Seager, Sasselov & Scott 1999),
+//!   helium recombination (effective three-level atom of Seager, Sasselov & Scott 1999,
+//!   with the HeI corrections of Kholupenko et al. 2007, Switzer & Hirata 2008 and
+//!   Wong, Moss & Scott 2008),
 //!   the matter temperature, tanh reionization fixed by the optical depth, and what
 //!   follows from them: the optical depth and visibility function, the last-scattering
 //!   and drag redshifts, the sound horizon, the acoustic angle and the diffusion damping
