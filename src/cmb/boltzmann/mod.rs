@@ -451,8 +451,9 @@ impl BoltzmannSolver {
 /// matter-only solve (thermal history, then the modes of the smallest CMB plan, l_max =
 /// 2, and the extra matter modes up to `k_max_mpc`, without any line-of-sight
 /// projection). Same normalization and accuracy as [`BoltzmannSolver::matter_transfer`]
-/// (0.11% against camb for 1e-4 < k < 1 h/Mpc); about a second on two cores (measured
-/// 0.8 s for k_max = 1.5 /Mpc).
+/// (0.11% against camb for 1e-4 < k < 1 h/Mpc, tests/boltzmann.rs); under a second
+/// (measured 0.4 to 0.8 s on two shared cores for k_max = 1.5 /Mpc, thermal history
+/// included).
 ///
 /// # Errors
 /// As [`ThermalHistory::new`] and [`BoltzmannSolver::new`] (e.g. dark energy other than
