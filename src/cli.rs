@@ -31,6 +31,19 @@ pub struct CommonArgs {
     pub format: Format,
 }
 
+/// Where the Boltzmann solver's transfer tables are cached, for the commands that can run
+/// it (with the full transfer model).
+#[derive(Debug, Clone, Args)]
+pub struct CacheArgs {
+    /// Cache transfer tables in DIR (default: $NGREACH_CACHE_DIR, else
+    /// $XDG_CACHE_HOME/ngreach, else ~/.cache/ngreach).
+    #[arg(long, value_name = "DIR", conflicts_with = "no_cache")]
+    pub cache_dir: Option<PathBuf>,
+    /// Neither read nor write cached transfer tables.
+    #[arg(long)]
+    pub no_cache: bool,
+}
+
 /// The subcommands.
 #[derive(Debug, Subcommand)]
 pub enum Command {
@@ -67,6 +80,9 @@ pub struct BatchArgs {
     /// Worker threads.
     #[arg(long, value_name = "N")]
     pub threads: Option<usize>,
+    /// Transfer-table cache.
+    #[command(flatten)]
+    pub cache: CacheArgs,
 }
 
 /// `ngreach merge`.
@@ -109,6 +125,9 @@ pub struct RunArgs {
     /// Format of the terminal summary: table (default) or json (the summary.json object).
     #[arg(long, value_enum, default_value_t = Format::Table)]
     pub format: Format,
+    /// Transfer-table cache.
+    #[command(flatten)]
+    pub cache: CacheArgs,
 }
 
 /// `ngreach background`.
@@ -187,6 +206,10 @@ pub struct SurveyArgs {
         default_value = "local,equilateral,orthogonal"
     )]
     pub shapes: Vec<String>,
+    /// Linear matter power: the Eisenstein-Hu fit, or the Boltzmann solver's z = 0 matter
+    /// transfer function (a matter-only solve, about a second).
+    #[arg(long, value_enum, value_name = "MODEL", default_value_t = crate::scenario::LinearPowerChoice::EisensteinHu)]
+    pub linear_power: crate::scenario::LinearPowerChoice,
     /// Worker threads (1 runs the serial path).
     #[arg(long, value_name = "N")]
     pub threads: Option<usize>,
@@ -238,6 +261,9 @@ pub struct CmbArgs {
     /// Worker threads (1 runs the serial path).
     #[arg(long, value_name = "N")]
     pub threads: Option<usize>,
+    /// Transfer-table cache.
+    #[command(flatten)]
+    pub cache: CacheArgs,
     /// Shared options.
     #[command(flatten)]
     pub common: CommonArgs,
@@ -260,6 +286,9 @@ pub struct SpectraArgs {
     /// Switch diffusion damping off.
     #[arg(long)]
     pub no_damping: bool,
+    /// Transfer-table cache.
+    #[command(flatten)]
+    pub cache: CacheArgs,
     /// Shared options.
     #[command(flatten)]
     pub common: CommonArgs,

@@ -59,6 +59,7 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                 kmax_h_mpc: a.kmax,
                 probes: commands::survey::parse_probes(&a.probes)?,
                 shapes: commands::survey::parse_shapes(&a.shapes, "--shapes")?,
+                linear_power: a.linear_power,
                 settings: ngreach::survey::fisher::SurveySettings {
                     parallel: a.threads != Some(1),
                     ..Default::default()
@@ -74,6 +75,7 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                 lmax: a.lmax,
                 shell_sigma_mpc: a.shell_width,
                 damping: !a.no_damping,
+                cache: cache_options(&a.cache),
             };
             Ok(commands::spectra::spectra_report(&c, &src, &opts)?.render(a.common.format))
         }
@@ -121,6 +123,7 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                 fields: commands::cmb::parse_fields(&a.fields)?,
                 shapes: commands::survey::parse_shapes(&a.shapes, "--shapes")?,
                 parallel: a.threads != Some(1),
+                cache: cache_options(&a.cache),
             };
             let (r, _) = commands::cmb::cmb_report(&c, &src, &opts)?;
             Ok(r.render(a.common.format))
@@ -135,6 +138,7 @@ fn run(cli: Cli) -> ngreach::Result<String> {
             let plan = ngreach::batch::load_plan(&a.plan)?;
             let settings = ngreach::pipeline::RunSettings {
                 parallel: a.threads != Some(1),
+                cache: cache_options(&a.cache),
                 ..Default::default()
             };
             let r = commands::batch::run_batch(&plan, &a.out, shard, &settings)?;
@@ -171,6 +175,7 @@ fn run(cli: Cli) -> ngreach::Result<String> {
             }
             let settings = ngreach::pipeline::RunSettings {
                 parallel: a.threads != Some(1),
+                cache: cache_options(&a.cache),
                 ..Default::default()
             };
             let (text, result) = commands::run::run_to_dir(&sc, &a.out, &settings, a.quiet)?;
@@ -183,6 +188,17 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                 _ => text,
             })
         }
+    }
+}
+
+/// `--cache-dir DIR` / `--no-cache`; without either, the cache resolves its directory from
+/// the environment (see `CacheOptions::resolve_dir`): flag > environment > default.
+fn cache_options(a: &ngreach::cli::CacheArgs) -> ngreach::cmb::boltzmann::CacheOptions {
+    use ngreach::cmb::boltzmann::CacheOptions;
+    match (&a.cache_dir, a.no_cache) {
+        (_, true) => CacheOptions::disabled(),
+        (Some(d), false) => CacheOptions::in_dir(d),
+        (None, false) => CacheOptions::default(),
     }
 }
 

@@ -10,6 +10,7 @@
 //! fields = ["T", "E", "T+E"]         # optional
 //! probes = ["P", "B", "P+B"]         # optional
 //! transfer = "shell"                 # or "full"
+//! linear_power = "eisenstein-hu"     # or "boltzmann" (the survey side's T(k))
 //!
 //! [cosmology]                        # optional; Planck 2018 defaults
 //!
@@ -46,6 +47,54 @@ pub enum TransferChoice {
     Full,
 }
 
+/// Which linear matter power spectrum the survey side uses: the transfer function T(k)
+/// of Eisenstein & Hu (1998) or the z = 0 matter transfer function of the line-of-sight
+/// Boltzmann solver ([`crate::cmb::boltzmann::matter_transfer_of`]).
+#[derive(
+    Debug, Clone, Copy, Default, PartialEq, Eq, Deserialize, serde::Serialize, clap::ValueEnum,
+)]
+#[serde(rename_all = "kebab-case")]
+pub enum LinearPowerChoice {
+    /// The Eisenstein & Hu (1998) fitting formula with baryon features (the default).
+    #[default]
+    EisensteinHu,
+    /// The Boltzmann solver's matter transfer function (cold dark matter plus baryons).
+    Boltzmann,
+}
+
+impl LinearPowerChoice {
+    /// The name used in input files, flags and outputs.
+    pub fn name(self) -> &'static str {
+        match self {
+            Self::EisensteinHu => "eisenstein-hu",
+            Self::Boltzmann => "boltzmann",
+        }
+    }
+
+    /// Checks that the choice can be computed for a cosmology: the Boltzmann solver
+    /// models a cosmological constant only.
+    ///
+    /// # Errors
+    /// [`Error::BadField`] at `at` naming `field`, with w0 and wa, for `boltzmann` with
+    /// w0 != -1 or wa != 0.
+    pub fn check(self, cosmo: &Cosmology, at: Location, field: &str) -> Result<()> {
+        let p = cosmo.params();
+        if self == Self::Boltzmann && (p.w0 != -1.0 || p.wa != 0.0) {
+            return Err(Error::BadField {
+                at,
+                field: field.into(),
+                message: format!(
+                    "`boltzmann` needs a cosmological constant (w0 = -1, wa = 0; dark-energy \
+                     perturbations are not modelled), the cosmology has w0 = {}, wa = {}; use \
+                     `eisenstein-hu`",
+                    p.w0, p.wa
+                ),
+            });
+        }
+        Ok(())
+    }
+}
+
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 struct ScenarioTable {
@@ -56,6 +105,7 @@ struct ScenarioTable {
     fields: Option<Spanned<Vec<String>>>,
     probes: Option<Spanned<Vec<String>>>,
     transfer: Option<TransferChoice>,
+    linear_power: Option<Spanned<LinearPowerChoice>>,
     shell_width_mpc: Option<Spanned<f64>>,
     #[serde(default = "yes")]
     damping: bool,
@@ -143,6 +193,8 @@ pub struct Scenario {
     pub probes: Vec<Probe>,
     /// Transfer model.
     pub transfer: TransferChoice,
+    /// Linear matter power of the survey side.
+    pub linear_power: LinearPowerChoice,
     /// Shell width override in Mpc (shell model).
     pub shell_width_mpc: Option<f64>,
     /// Diffusion damping on (shell model).
@@ -378,6 +430,14 @@ pub fn resolve_scenario(src: &Source, files: &dyn FileResolver) -> Result<Scenar
         let sf: SurveyFile = parse_toml(&text)?;
         surveys.push(sf.survey.resolve(&text, &bg, &growth)?);
     }
+    let linear_power = match &t.linear_power {
+        Some(v) => {
+            let choice = *v.get_ref();
+            choice.check(&cosmology, src.at(v), "linear_power")?;
+            choice
+        }
+        None => LinearPowerChoice::default(),
+    };
     if experiments.is_empty() && surveys.is_empty() {
         return Err(Error::BadField {
             at: whole,
@@ -400,6 +460,7 @@ pub fn resolve_scenario(src: &Source, files: &dyn FileResolver) -> Result<Scenar
         fields,
         probes,
         transfer: t.transfer.unwrap_or(TransferChoice::Shell),
+        linear_power,
         shell_width_mpc,
         damping: t.damping,
         output: f.output,

@@ -323,6 +323,82 @@ fn check_validates_every_shipped_input() {
     );
 }
 
+/// `linear_power = "boltzmann"` in a scenario reaches the survey engine and the resolved
+/// choice is reported in summary.json `inputs` (survey-only scenario, so no CMB work).
+#[test]
+fn scenario_linear_power_reaches_the_survey_side() {
+    let d = tmp("linpow");
+    let survey = root().join("tests/data/survey_small.toml");
+    let mut sigma = Vec::new();
+    for model in ["eisenstein-hu", "boltzmann"] {
+        let f = d.join(format!("{model}.toml"));
+        std::fs::write(
+            &f,
+            format!(
+                "[scenario]\nshapes = [\"local\"]\nkmax_h_mpc = [0.1]\nprobes = [\"P+B\"]\nlinear_power = \"{model}\"\n\n[[survey]]\nfile = {:?}\n\n[output]\nfigures = false\nlatex = false\n",
+                survey.to_str().unwrap()
+            ),
+        )
+        .unwrap();
+        let out = d.join(model);
+        let j = run_json(&[
+            "run",
+            f.to_str().unwrap(),
+            "--out",
+            out.to_str().unwrap(),
+            "--quiet",
+            "--format",
+            "json",
+        ]);
+        assert_eq!(
+            j["inputs"]["linear_power"]["model"], model,
+            "{}",
+            j["inputs"]
+        );
+        sigma.push(j["survey"][0]["sigma_marginal"].as_f64().unwrap());
+    }
+    // Measured: -0.28% (the Boltzmann transfer function against Eisenstein-Hu).
+    let rel = sigma[1] / sigma[0] - 1.0;
+    println!(
+        "P+B local: eisenstein-hu {:.4}, boltzmann {:.4} ({rel:+.4})",
+        sigma[0], sigma[1]
+    );
+    assert!(rel.abs() < 0.03 && rel != 0.0, "{sigma:?}");
+    std::fs::remove_dir_all(&d).ok();
+}
+
+/// Every scenario in tests/bad_inputs/scenarios/ names, in `# expect:` lines, fragments
+/// of the error `ngreach check` must print (one `error:` line, exit code 2, no panic).
+#[test]
+fn bad_scenario_files_are_rejected_clearly() {
+    let mut files: Vec<_> = std::fs::read_dir(root().join("tests/bad_inputs/scenarios"))
+        .unwrap()
+        .map(|e| e.unwrap().path())
+        .filter(|p| p.extension().is_some_and(|e| e == "toml"))
+        .collect();
+    files.sort();
+    assert!(!files.is_empty());
+    for p in files {
+        let text = std::fs::read_to_string(&p).unwrap();
+        let expect: Vec<&str> = text
+            .lines()
+            .filter_map(|l| l.strip_prefix("# expect: "))
+            .collect();
+        assert!(!expect.is_empty(), "{} has no expectation", p.display());
+        let o = run(&["check", p.to_str().unwrap()]);
+        let err = stderr(&o);
+        assert_eq!(o.status.code(), Some(2), "{}: {err}", p.display());
+        assert!(
+            err.starts_with("error: ") && !err.contains("panicked"),
+            "{err}"
+        );
+        assert_eq!(err.trim_end().lines().count(), 1, "{err}");
+        for frag in expect {
+            assert!(err.contains(frag), "{}: `{frag}` not in {err}", p.display());
+        }
+    }
+}
+
 #[test]
 fn bad_scenario_and_cmb_inputs_exit_2() {
     let d = tmp("bad");

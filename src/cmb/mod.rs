@@ -1,7 +1,9 @@
 //! CMB physics and the CMB bispectrum Fisher engine.
 //!
 //! - [`thermal`]: the thermal history of the photon-baryon plasma, i.e. hydrogen and
-//!   helium recombination (effective three-level atom of Seager, Sasselov & Scott 1999),
+//!   helium recombination (effective three-level atom of Seager, Sasselov & Scott 1999,
+//!   with the HeI corrections of Kholupenko et al. 2007, Switzer & Hirata 2008 and
+//!   Wong, Moss & Scott 2008),
 //!   the matter temperature, tanh reionization fixed by the optical depth, and what
 //!   follows from them: the optical depth and visibility function, the last-scattering
 //!   and drag redshifts, the sound horizon, the acoustic angle and the diffusion damping
@@ -111,8 +113,9 @@ pub fn radial_grid_for_table(
 }
 
 /// The full transfer table from the line-of-sight Boltzmann solver (read from the cache
-/// when a valid copy exists), with the radial grid of the shell model of the same
-/// thermal history, widened to the table's k range.
+/// `cache` when a valid copy exists, stored there otherwise), with the radial grid of
+/// the shell model of the same thermal history ([`radial_grid_for_table`]). The
+/// description records what the cache did (`cache.status`: hit, stored, ...).
 ///
 /// # Errors
 /// Solver failures (e.g. dark-energy perturbations are not modelled: w0 != -1).
@@ -121,6 +124,7 @@ pub fn full_transfer_for(
     th: &ThermalHistory,
     _bg: &crate::cosmology::Background,
     lmax: usize,
+    cache: &boltzmann::CacheOptions,
 ) -> Result<(
     transfer::TransferTable,
     transfer::RadialGrid,
@@ -130,8 +134,7 @@ pub fn full_transfer_for(
         lmax: lmax.max(2),
         ..boltzmann::Settings::default()
     };
-    let (table, status) =
-        boltzmann::cached_transfer(c, &settings, &boltzmann::CacheOptions::default())?;
+    let (table, status) = boltzmann::cached_transfer(c, &settings, cache)?;
     let radial = radial_grid_for_table(th, &table, &bispectrum_radial_spec())?;
     let meta = serde_json::json!({
         "model": "full",
@@ -139,7 +142,7 @@ pub fn full_transfer_for(
         "precision": settings.precision,
         "k_nodes": table.k().len(),
         "radial_nodes": radial.len(),
-        "cache": format!("{status:?}"),
+        "cache": status.to_json(),
     });
     Ok((table, radial, meta))
 }

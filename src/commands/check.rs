@@ -93,7 +93,7 @@ pub fn check_file(path: &Path) -> Result<String> {
         FileKind::Scenario => {
             let s = crate::scenario::load_scenario(path)?;
             format!(
-                "{d}: scenario `{}`, valid: {} experiment(s), {} survey(s), shapes {}, l_max {:?}, k_max {:?} h/Mpc, transfer {:?}; `ngreach run {d}` computes it",
+                "{d}: scenario `{}`, valid: {} experiment(s), {} survey(s), shapes {}, l_max {:?}, k_max {:?} h/Mpc, transfer {:?}, linear power {}; `ngreach run {d}` computes it",
                 s.name,
                 s.experiments.len(),
                 s.surveys.len(),
@@ -104,7 +104,8 @@ pub fn check_file(path: &Path) -> Result<String> {
                     .join(","),
                 s.lmax,
                 s.kmax_h_mpc,
-                s.transfer
+                s.transfer,
+                s.linear_power.name()
             )
         }
         FileKind::Plan => {

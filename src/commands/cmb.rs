@@ -3,6 +3,7 @@
 use serde_json::{Value, json};
 
 use crate::cmb::bispectrum::{CmbFisherInput, CmbForecast, FieldSet, cmb_fisher};
+use crate::cmb::boltzmann::CacheOptions;
 use crate::cmb::experiment::{Experiment, validate_lmax};
 use crate::cmb::thermal::ThermalHistory;
 use crate::combine::{log_slopes, sigmas};
@@ -31,6 +32,8 @@ pub struct CmbOptions {
     pub shapes: Vec<Shape>,
     /// Parallel loops.
     pub parallel: bool,
+    /// Transfer-table cache of the Boltzmann solver (`--cache-dir`, `--no-cache`).
+    pub cache: CacheOptions,
 }
 
 /// Parses `--fields`.
@@ -76,7 +79,7 @@ pub fn cmb_report(
         TransferChoice::Shell => {
             crate::cmb::shell_transfer_for(&th, opts.shell_width_mpc, opts.damping, top)?
         }
-        TransferChoice::Full => crate::cmb::full_transfer_for(c, &th, &bg, top)?,
+        TransferChoice::Full => crate::cmb::full_transfer_for(c, &th, &bg, top, &opts.cache)?,
     };
     let inp = CmbFisherInput {
         transfer: &table,

@@ -6,6 +6,7 @@
 use serde_json::{Value, json};
 
 use crate::cmb::ThermalHistory;
+use crate::cmb::boltzmann::CacheOptions;
 use crate::cmb::shell::{Damping, FWHM_PER_SIGMA, KGridSpec, MAX_LMAX, ShellModel, ShellOverrides};
 use crate::cosmology::{Background, Cosmology, Primordial};
 use crate::error::{Error, Location, Result};
@@ -26,7 +27,7 @@ pub enum TransferKind {
 }
 
 /// Typed options of `ngreach spectra`.
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, PartialEq)]
 pub struct SpectraOptions {
     /// Transfer model.
     pub transfer: TransferKind,
@@ -36,6 +37,8 @@ pub struct SpectraOptions {
     pub shell_sigma_mpc: Option<f64>,
     /// Diffusion damping on or off.
     pub damping: bool,
+    /// Transfer-table cache of the Boltzmann solver (`--cache-dir`, `--no-cache`).
+    pub cache: CacheOptions,
 }
 
 /// Checks the options.
@@ -176,7 +179,7 @@ fn full_report(
             message: "--shell-width and --no-damping apply to --transfer shell only".into(),
         });
     }
-    let (table, _radial, meta) = crate::cmb::full_transfer_for(c, th, bg, o.lmax)?;
+    let (table, _radial, meta) = crate::cmb::full_transfer_for(c, th, bg, o.lmax, &o.cache)?;
     let prim = Primordial::new(c);
     let s = crate::cmb::boltzmann::Spectra::from_table(&table, &prim);
     let t_uk = c.params().t_cmb_k * 1.0e6;
@@ -200,6 +203,7 @@ mod tests {
             lmax,
             shell_sigma_mpc: w,
             damping: true,
+            cache: CacheOptions::disabled(),
         }
     }
 

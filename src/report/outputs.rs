@@ -208,6 +208,7 @@ fn inputs_json(r: &RunResult) -> Value {
         "fields": sc.fields.iter().map(|f| f.label()).collect::<Vec<_>>(),
         "probes": sc.probes.iter().map(|p| p.label()).collect::<Vec<_>>(),
         "transfer": r.transfer,
+        "linear_power": r.linear_power,
         "experiments": sc.experiments,
         "surveys": sc.surveys.iter().map(|s| json!({
             "name": s.name, "f_sky": s.f_sky, "redshift_error": s.redshift_error,

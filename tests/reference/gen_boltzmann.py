@@ -23,10 +23,9 @@ rule), As = exp(3.044) 1e-10, ns = 0.9649, pivot 0.05/Mpc.
 Recombination and reionization are set as in tests/reference/gen_thermal.py (`matched`):
 RECFAST hydrogen with the plain fudge factor 1.14 (RECFAST_Hswitch off), no extra HeI rate
 correction, RECFAST_fudge_He = 0.86, tanh reionization of width 0.5 in z, helium's second
-reionization at z = 3.5 of width 0.5. camb's HeI recombination always carries the
-corrected physics that ngreach's thermal history leaves out (see gen_thermal.py): x_e
-differs by up to 3.5% near z = 1800, which moves the damping scale k_D by about +0.13%
-and so the damping tail of C_l by a few tenths of a percent at l ~ 2500.
+reionization at z = 3.5 of width 0.5. camb's HeI recombination carries the corrected
+physics (Sobolev escape, hydrogen continuum opacity, triplet channel) that ngreach's
+thermal history also has; x_e agrees to 2e-4 (see gen_thermal.py).
 
 Accuracy: AccuracyBoost = 2, lAccuracyBoost = 2, lSampleBoost = 50 (every l computed, no
 interpolation in l), so that camb's own numerical error is well below the 1% tolerance of

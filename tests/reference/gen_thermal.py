@@ -16,11 +16,11 @@ Two camb configurations are written:
   (RECFAST_He_rate_correction off), tanh reionization in (1+z)^(3/2) of width 0.5 with
   hydrogen and singly ionized helium together, helium's second reionization at z = 3.5 of
   width 0.5 (camb's default width is 0.4), included below z = 7.5 (= 3.5 + 8 widths, so the
-  cut at the start of the tanh is negligible). camb's helium recombination cannot be made
-  to match exactly: it always uses the corrected HeI physics (Sobolev escape, hydrogen
-  continuum opacity, triplet channel), while ngreach uses the helium equation of Seager,
-  Sasselov & Scott (1999) without those corrections. RECFAST_fudge_He (the exponent of the
-  continuum-opacity fit) is set to 0.86, the value of the RECFAST 1.5 papers.
+  cut at the start of the tanh is negligible). camb's helium recombination always carries
+  the corrected HeI physics (Sobolev escape, hydrogen continuum opacity, triplet channel;
+  Kholupenko, Ivanchik & Varshalovich 2007, Switzer & Hirata 2008, Wong, Moss & Scott
+  2008), as ngreach's thermal history does. RECFAST_fudge_He (the exponent of the
+  continuum-opacity fit) is set to 0.86, the value of Wong, Moss & Scott (2008).
 - `default`: camb's own defaults (for information only; not used by tests).
 """
 

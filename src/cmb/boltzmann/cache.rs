@@ -36,7 +36,7 @@ use crate::error::Result;
 const MAGIC: &[u8; 8] = b"NGRTRANS";
 const FORMAT_VERSION: u32 = 1;
 /// Bumped whenever the solver's numerics change what it computes.
-const SOLVER_VERSION: u64 = 1;
+const SOLVER_VERSION: u64 = 2;
 const HEADER_LEN: usize = 40;
 
 /// Where (and whether) to cache transfer tables.
@@ -114,6 +114,44 @@ pub enum CacheStatus {
         /// The I/O error.
         reason: String,
     },
+}
+
+impl CacheStatus {
+    /// A short name: `disabled`, `no-directory`, `hit`, `stored`, `replaced` or
+    /// `store-failed`.
+    pub fn label(&self) -> &'static str {
+        match self {
+            Self::Disabled => "disabled",
+            Self::NoDirectory => "no-directory",
+            Self::Hit(_) => "hit",
+            Self::Stored(_) => "stored",
+            Self::Replaced { .. } => "replaced",
+            Self::StoreFailed { .. } => "store-failed",
+        }
+    }
+
+    /// The cache file involved, if any.
+    pub fn path(&self) -> Option<&Path> {
+        match self {
+            Self::Disabled | Self::NoDirectory => None,
+            Self::Hit(p) | Self::Stored(p) => Some(p),
+            Self::Replaced { path, .. } | Self::StoreFailed { path, .. } => Some(path),
+        }
+    }
+
+    /// As JSON for the outputs' `inputs`: `{"status", "file", "reason"}` (null where
+    /// not applicable).
+    pub fn to_json(&self) -> serde_json::Value {
+        let reason = match self {
+            Self::Replaced { reason, .. } | Self::StoreFailed { reason, .. } => Some(reason),
+            _ => None,
+        };
+        serde_json::json!({
+            "status": self.label(),
+            "file": self.path().map(|p| p.display().to_string()),
+            "reason": reason,
+        })
+    }
 }
 
 /// 64-bit FNV-1a.

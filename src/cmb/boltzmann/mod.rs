@@ -135,13 +135,12 @@
 //!
 //! ## Accuracy (measured; tests/boltzmann.rs prints the figures)
 //! Against camb 2.0.5 (unlensed, massless neutrinos, matched recombination settings):
-//! |Delta C/C| <= 0.14% for TT and EE at l < 30 and <= 0.63% at 30 <= l <= 2000, growing to
-//! +1.02% (TT, l = 2500) and +0.93% (EE, l = 2400) above; TE within 0.41% of
-//! sqrt(TT EE); T(k) within 0.11% for 1e-4 < k < 1 h/Mpc. The growth above l ~ 1000 comes from the thermal history (its HeI
-//! recombination keeps x_e up to 3.5% above camb's near z = 1800, so diffusion damping is
-//! weaker): with camb's x_e in the opacity the solver matches camb to 0.1% at
-//! 30 <= l <= 2500. Precision 2 changes C_l by at most 0.09% (TT), 0.07% (EE) and
-//! 0.11% of sqrt(TT EE) (TE) (the ignored convergence test in tests/boltzmann.rs).
+//! |Delta C/C| <= 0.14% for TT and EE at l < 30, <= 0.11% at 30 <= l <= 2000 and
+//! <= 0.03% at 2000 < l <= 2500; TE within 0.12% of sqrt(TT EE); T(k) within 0.11% for
+//! 1e-4 < k < 1 h/Mpc. With camb's x_e in the opacity instead of our thermal history
+//! the solver matches camb to 0.1% at 30 <= l <= 2500 as well. Precision 2 changes C_l
+//! by at most 0.09% (TT), 0.07% (EE) and 0.11% of sqrt(TT EE) (TE) (the ignored
+//! convergence test in tests/boltzmann.rs).
 //!
 //! ## Cache
 //! [`cached_transfer`] stores tables in a binary file format of its own with a header,
@@ -448,6 +447,35 @@ impl BoltzmannSolver {
     }
 }
 
+/// The z = 0 matter transfer function of `cosmo` alone, for the survey side: a
+/// matter-only solve (thermal history, then the modes of the smallest CMB plan, l_max =
+/// 2, and the extra matter modes up to `k_max_mpc`, without any line-of-sight
+/// projection). Same normalization and accuracy as [`BoltzmannSolver::matter_transfer`]
+/// (0.11% against camb for 1e-4 < k < 1 h/Mpc, tests/boltzmann.rs); under a second
+/// (measured 0.4 to 0.8 s on two shared cores for k_max = 1.5 /Mpc, thermal history
+/// included).
+///
+/// # Errors
+/// As [`ThermalHistory::new`] and [`BoltzmannSolver::new`] (e.g. dark energy other than
+/// a cosmological constant); [`Error::OutOfRange`] for `k_max_mpc` outside [0.01, 20].
+pub fn matter_transfer_of(
+    cosmo: &Cosmology,
+    precision: u32,
+    k_max_mpc: f64,
+    parallel: bool,
+) -> Result<CubicSpline> {
+    let settings = Settings {
+        precision,
+        lmax: 2,
+        k_max_matter_mpc: k_max_mpc,
+        parallel,
+    };
+    settings.validate()?;
+    let bg = Background::new(cosmo);
+    let th = ThermalHistory::new(cosmo, &bg)?;
+    BoltzmannSolver::new(cosmo, &th, &bg, settings)?.matter_transfer()
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -465,9 +493,9 @@ mod tests {
     }
 
     /// Stage check (methods.md, "debugging against a reference library"): with camb's
-    /// ionization history fed into the opacity, the solver's C_l must match camb's far
-    /// better than with ngreach's own thermal history, whose HeI recombination lacks the
-    /// corrections camb always applies (see tests/boltzmann.rs). Reference: camb 2.0.5,
+    /// ionization history fed into the opacity, the solver's C_l must match camb's: this
+    /// separates the solver from the thermal history (which now agrees with camb's x_e
+    /// to 2e-4, so both routes give about 0.1%). Reference: camb 2.0.5,
     /// tests/reference/thermal_camb.tsv (x_e, `matched` settings) and cl_camb.tsv.
     #[test]
     fn matches_camb_with_camb_ionization_history() {
