@@ -29,9 +29,23 @@ pub struct TransferTable {
     data: Vec<Vec<f64>>,
     fields: Vec<Field>,
     label: String,
+    k_truncated: bool,
 }
 
 impl TransferTable {
+    /// Marks the table as ending at a k where the transfer functions are not yet
+    /// negligible (a Boltzmann table cut for the C_l it serves): the bispectrum engine
+    /// then tapers the top of the k range in its radial integrals.
+    pub fn mark_k_truncated(mut self) -> Self {
+        self.k_truncated = true;
+        self
+    }
+
+    /// See [`Self::mark_k_truncated`].
+    pub fn k_truncated(&self) -> bool {
+        self.k_truncated
+    }
+
     /// Assembles a table. `data[f]` must hold `k.len() * (lmax + 1)` values, k-major.
     pub fn new(
         label: &str,
@@ -53,6 +67,7 @@ impl TransferTable {
             data,
             fields,
             label: label.to_string(),
+            k_truncated: false,
         }
     }
 

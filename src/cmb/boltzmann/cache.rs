@@ -389,7 +389,8 @@ pub fn read_table(
     if !k.windows(2).all(|p| p[0] < p[1]) || k[0] <= 0.0 {
         return Err("k grid is not positive and increasing".into());
     }
-    Ok(TransferTable::new(&label, k, w, lmax, fields, data))
+    // Only Boltzmann tables are cached: they end at k chi_* = 2.1 l_max + 600.
+    Ok(TransferTable::new(&label, k, w, lmax, fields, data).mark_k_truncated())
 }
 
 /// The transfer table of a cosmology, from the cache when a trusted file exists,

@@ -379,6 +379,7 @@ impl BoltzmannSolver {
             vec![Field::T, Field::E],
             vec![t, e],
         )
+        .mark_k_truncated()
     }
 
     /// Unlensed C_l^TT, EE, TE at every l (through [`Self::transfer_table`]).
