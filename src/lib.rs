@@ -16,7 +16,7 @@
 //! - f_NL is in the CMB convention: the growth factor that links Phi to the density is
 //!   normalized to a in matter domination ([`cosmology::Growth::d_md`]).
 
-#![deny(unsafe_code)] // one audited exception: the dgemm call in cmb::bispectrum
+#![deny(unsafe_code)] // one audited exception: the dgemm call in numerics::gemm
 #![warn(missing_docs)]
 
 pub mod batch;

@@ -219,7 +219,7 @@ fn split_is_exact_and_compression_is_within_tolerance() {
     let mut worst_fast: f64 = 0.0;
     let mut worst_low: f64 = 0.0;
     for fs in 0..fsets.len() {
-        for m in 0..grid.len() {
+        for (m, &lm) in grid.iter().enumerate() {
             let (a, b, f) = (
                 &exact.fisher[fs][m],
                 &split.fisher[fs][m],
@@ -237,7 +237,7 @@ fn split_is_exact_and_compression_is_within_tolerance() {
             );
             for i in 0..n {
                 let d = (sf[i] / sa[i] - 1.0).abs();
-                if grid[m] >= 300 {
+                if lm >= 300 {
                     worst_fast = worst_fast.max(d);
                 } else {
                     worst_low = worst_low.max(d);

@@ -195,12 +195,14 @@ impl BispectrumPlan {
             let mut out = vec![0.0; ne * nf * nl];
             let mut j = vec![0.0; nl + 1];
             let mut lanes: Vec<usize> = Vec::with_capacity(XLANES);
+            let mut jbuf = vec![0.0; XLANES * nl];
+            let mut dbuf = vec![0.0; XLANES * nl];
             for ik in 0..tr.k().len() {
                 let x = tr.k()[ik] * r;
                 if x >= (lmax + 2) as f64 {
                     lanes.push(ik);
                     if lanes.len() == XLANES {
-                        radial_lanes(tr, &coefs, &lanes, r, nl, &mut out);
+                        radial_lanes(tr, &coefs, &lanes, r, nl, &mut out, &mut jbuf, &mut dbuf);
                         lanes.clear();
                     }
                     continue;
@@ -218,7 +220,7 @@ impl BispectrumPlan {
                 }
             }
             if !lanes.is_empty() {
-                radial_lanes(tr, &coefs, &lanes, r, nl, &mut out);
+                radial_lanes(tr, &coefs, &lanes, r, nl, &mut out, &mut jbuf, &mut dbuf);
             }
             out
         };
@@ -331,7 +333,10 @@ const XLANES: usize = 4;
 
 /// Adds the contributions of up to four k nodes (all with k r > l_max + 1) to the radial
 /// functions at r: out[(e nf + f) nl + l] += c_e(k) Delta^f_l(k) j_l(k r), with j_l from
-/// the upward recurrence from the exact j_0, j_1, run for the lanes side by side.
+/// the upward recurrence from the exact j_0, j_1 (stable below the turning point), run
+/// for the lanes side by side into `jbuf` (XLANES x nl); then every accumulation is a
+/// contiguous loop over l. `dbuf` is scratch of the same size.
+#[allow(clippy::too_many_arguments)]
 fn radial_lanes(
     tr: &TransferTable,
     coefs: &[Vec<f64>],
@@ -339,11 +344,13 @@ fn radial_lanes(
     r: f64,
     nl: usize,
     out: &mut [f64],
+    jbuf: &mut [f64],
+    dbuf: &mut [f64],
 ) {
     let nf = tr.fields().len();
     let ne = coefs.first().map_or(0, Vec::len);
     let n = lanes.len();
-    let mut ix = [1e-6; XLANES];
+    let mut ix = [0.0; XLANES];
     let mut jm = [0.0; XLANES];
     let mut jc = [0.0; XLANES];
     for (g, &ik) in lanes.iter().enumerate() {
@@ -353,39 +360,49 @@ fn radial_lanes(
         jm[g] = s / x;
         jc[g] = (s / x - c) / x;
     }
-    // j_l for l = 0, 1, then upward; lanes beyond n carry zeros.
-    // Transfer rows per lane and field (tables have one or two fields).
-    let empty: &[f64] = &[];
-    let mut rows = [[empty; 2]; XLANES];
-    for (g, &ik) in lanes.iter().enumerate() {
-        rows[g] = [tr.row(0, ik), tr.row(nf.saturating_sub(1), ik)];
+    // Recurrence, lanes interleaved: jbuf[g * nl + l].
+    for g in 0..n {
+        jbuf[g * nl] = jm[g];
+        if nl > 1 {
+            jbuf[g * nl + 1] = jc[g];
+        }
     }
-    let mut jl = [0.0; XLANES];
-    for l in 0..nl {
-        match l {
-            0 => jl[..n].copy_from_slice(&jm[..n]),
-            1 => jl[..n].copy_from_slice(&jc[..n]),
-            _ => {
-                let tl = (2 * l - 1) as f64;
-                for g in 0..n {
-                    let jp = tl * ix[g] * jc[g] - jm[g];
-                    jm[g] = jc[g];
-                    jc[g] = jp;
-                    jl[g] = jp;
-                }
+    for l in 2..nl {
+        let tl = (2 * l - 1) as f64;
+        for g in 0..n {
+            let jp = tl * ix[g] * jc[g] - jm[g];
+            jm[g] = jc[g];
+            jc[g] = jp;
+            jbuf[g * nl + l] = jp;
+        }
+    }
+    for f in 0..nf {
+        // d_g(l) = Delta^f_l(k_g) j_l(k_g r).
+        for (g, &ik) in lanes.iter().enumerate() {
+            let row = &tr.row(f, ik)[..nl];
+            let jl = &jbuf[g * nl..(g + 1) * nl];
+            let d = &mut dbuf[g * nl..(g + 1) * nl];
+            for ((d, &t), &j) in d.iter_mut().zip(row).zip(jl) {
+                *d = t * j;
             }
         }
-        for f in 0..nf {
-            let mut d = [0.0; XLANES];
-            for g in 0..n {
-                d[g] = rows[g][f.min(1)][l] * jl[g];
-            }
-            for e in 0..ne {
-                let mut acc = 0.0;
-                for g in 0..n {
-                    acc += coefs[lanes[g]][e] * d[g];
+        for e in 0..ne {
+            let o = &mut out[(e * nf + f) * nl..(e * nf + f + 1) * nl];
+            let mut g = 0;
+            while g + 1 < n {
+                let (c0, c1) = (coefs[lanes[g]][e], coefs[lanes[g + 1]][e]);
+                let d0 = &dbuf[g * nl..(g + 1) * nl];
+                let d1 = &dbuf[(g + 1) * nl..(g + 2) * nl];
+                for ((o, &a), &b) in o.iter_mut().zip(d0).zip(d1) {
+                    *o += c0 * a + c1 * b;
                 }
-                out[(e * nf + f) * nl + l] += acc;
+                g += 2;
+            }
+            if g < n {
+                let c0 = coefs[lanes[g]][e];
+                for (o, &a) in o.iter_mut().zip(&dbuf[g * nl..(g + 1) * nl]) {
+                    *o += c0 * a;
+                }
             }
         }
     }
@@ -567,11 +584,7 @@ fn compress_block(
         .collect();
     let mut basis: Vec<Vec<f64>> = Vec::new();
     let mut coef: Vec<Vec<f64>> = vec![Vec::new(); nb];
-    loop {
-        let (piv, &best) = match res2.iter().enumerate().max_by(|a, b| a.1.total_cmp(b.1)) {
-            Some(p) => p,
-            None => break,
-        };
+    while let Some((piv, &best)) = res2.iter().enumerate().max_by(|a, b| a.1.total_cmp(b.1)) {
         if best <= floor || basis.len() == nb {
             break;
         }
@@ -1204,13 +1217,13 @@ fn block_update(
     for b in 0..ne {
         let vb = &blk.v[b][off..];
         let wb = &mut sc.wm[b][..nq * wc];
-        gemm::gemm(nq, nq, wc, m, (nq, 1), vb, (w, 1), 0.0, wb, (wc, 1));
+        crate::numerics::gemm::gemm(nq, nq, wc, m, (nq, 1), vb, (w, 1), 0.0, wb, (wc, 1));
     }
     // S_ab[a0.., a0..] += V_a^T W_b.
     for (ip, &(a, b)) in pairs.iter().enumerate() {
         let va = &blk.v[a][off..];
         let s = &mut sc.s[ip][a0 * n_r + a0..];
-        gemm::gemm(
+        crate::numerics::gemm::gemm(
             wc,
             nq,
             wc,
@@ -1306,64 +1319,86 @@ pub fn legendre_all(lmax: usize, mu: f64, out: &mut [f64]) {
     }
 }
 
-mod gemm {
-    //! The one place that calls matrixmultiply (its dgemm takes raw pointers).
-    #![allow(unsafe_code)]
-
-    /// Largest index touched by an m x n matrix with strides (rs, cs), plus one.
-    fn extent(m: usize, n: usize, (rs, cs): (usize, usize)) -> usize {
-        if m == 0 || n == 0 {
-            0
-        } else {
-            (m - 1) * rs + (n - 1) * cs + 1
+/// The brute-force oracle: the direct sum over every (l1, l2, l3) <= `lmax` with the exact
+/// Wigner 3j symbol, explicit field sums and the plan's radial integrals of the reduced
+/// bispectrum, F_ij = (f_sky / 6) Sum G^2 b^i C^-1 C^-1 C^-1 b^j (row-major ns x ns,
+/// field set index `fs`). O(l_max^3 n_r): for tests and benchmarks only.
+pub fn brute_force_fisher(
+    plan: &BispectrumPlan,
+    fs: usize,
+    lmax: usize,
+    parallel: bool,
+) -> Vec<f64> {
+    use crate::special::wigner::wigner3j_000_squared;
+    let ns = plan.terms.len();
+    let nf = plan.fields.len();
+    let combos: Vec<[usize; 3]> = (0..nf)
+        .flat_map(|a| (0..nf).flat_map(move |b| (0..nf).map(move |c| [a, b, c])))
+        .collect();
+    let lmax = lmax.min(plan.lmax);
+    let row = |l1: usize| -> Vec<f64> {
+        let mut f = vec![0.0; ns * ns];
+        let mut b = vec![vec![0.0; combos.len()]; ns];
+        for l2 in 2..=lmax {
+            for l3 in 2..=lmax {
+                let w2 = wigner3j_000_squared(l1 as u32, l2 as u32, l3 as u32);
+                if w2 == 0.0 {
+                    continue;
+                }
+                let g2 = ((2 * l1 + 1) * (2 * l2 + 1) * (2 * l3 + 1)) as f64
+                    / (4.0 * std::f64::consts::PI)
+                    * w2;
+                let ci = [plan.cinv[fs][l1], plan.cinv[fs][l2], plan.cinv[fs][l3]];
+                for (s, bs) in b.iter_mut().enumerate() {
+                    for (ic, c) in combos.iter().enumerate() {
+                        let used = (0..3).all(|leg| {
+                            cinv_entry(&ci[leg], plan.fields[c[leg]], plan.fields[c[leg]]) != 0.0
+                        });
+                        bs[ic] = if used {
+                            plan.reduced_bispectrum(s, [l1, l2, l3], *c)
+                        } else {
+                            0.0
+                        };
+                    }
+                }
+                for i in 0..ns {
+                    for j in 0..ns {
+                        let mut acc = 0.0;
+                        for (ia, a) in combos.iter().enumerate() {
+                            if b[i][ia] == 0.0 {
+                                continue;
+                            }
+                            for (ib, bb) in combos.iter().enumerate() {
+                                let mut c = 1.0;
+                                for leg in 0..3 {
+                                    c *= cinv_entry(
+                                        &ci[leg],
+                                        plan.fields[a[leg]],
+                                        plan.fields[bb[leg]],
+                                    );
+                                }
+                                if c != 0.0 {
+                                    acc += b[i][ia] * c * b[j][ib];
+                                }
+                            }
+                        }
+                        f[i * ns + j] += g2 * acc;
+                    }
+                }
+            }
         }
+        f
+    };
+    let rows: Vec<Vec<f64>> = if parallel {
+        (2..=lmax).into_par_iter().map(row).collect()
+    } else {
+        (2..=lmax).map(row).collect()
+    };
+    let mut f = vec![0.0; ns * ns];
+    for r in rows {
+        f.iter_mut().zip(r).for_each(|(x, y)| *x += y);
     }
-
-    /// C = A B + beta C for an m x k matrix A, a k x n matrix B and an m x n matrix C,
-    /// each given by a slice and its (row, column) strides. Bounds are checked once.
-    #[allow(clippy::too_many_arguments)]
-    pub fn gemm(
-        m: usize,
-        k: usize,
-        n: usize,
-        a: &[f64],
-        sa: (usize, usize),
-        b: &[f64],
-        sb: (usize, usize),
-        beta: f64,
-        c: &mut [f64],
-        sc: (usize, usize),
-    ) {
-        assert!(
-            extent(m, k, sa) <= a.len()
-                && extent(k, n, sb) <= b.len()
-                && extent(m, n, sc) <= c.len(),
-            "gemm: matrix out of bounds"
-        );
-        if m == 0 || n == 0 {
-            return;
-        }
-        // SAFETY: the assertion above bounds every element index of A, B and C by the
-        // lengths of their slices; c is a unique borrow, so it aliases neither a nor b.
-        unsafe {
-            matrixmultiply::dgemm(
-                m,
-                k,
-                n,
-                1.0,
-                a.as_ptr(),
-                sa.0 as isize,
-                sa.1 as isize,
-                b.as_ptr(),
-                sb.0 as isize,
-                sb.1 as isize,
-                beta,
-                c.as_mut_ptr(),
-                sc.0 as isize,
-                sc.1 as isize,
-            );
-        }
-    }
+    f.iter().map(|v| v * plan.f_sky / 6.0).collect()
 }
 
 #[cfg(test)]
@@ -1440,62 +1475,6 @@ pub(crate) mod tests {
         e
     }
 
-    /// Direct triple sum with exact Wigner 3j, explicit field sums and the plan's radial
-    /// integrals: the slow oracle for the fast path.
-    fn brute_force(plan: &BispectrumPlan, fs: usize, lmax: usize, f_sky: f64) -> Vec<f64> {
-        let ns = plan.terms().len();
-        let nf = plan.n_fields();
-        let combos: Vec<[usize; 3]> = (0..nf)
-            .flat_map(|a| (0..nf).flat_map(move |b| (0..nf).map(move |c| [a, b, c])))
-            .collect();
-        let fields = |i: usize| plan.fields[i];
-        let mut f = vec![0.0; ns * ns];
-        for l1 in 2..=lmax {
-            for l2 in 2..=lmax {
-                for l3 in 2..=lmax {
-                    let w2 = wigner3j_000_squared(l1 as u32, l2 as u32, l3 as u32);
-                    if w2 == 0.0 {
-                        continue;
-                    }
-                    let g2 = ((2 * l1 + 1) * (2 * l2 + 1) * (2 * l3 + 1)) as f64
-                        / (4.0 * std::f64::consts::PI)
-                        * w2;
-                    let b: Vec<Vec<f64>> = (0..ns)
-                        .map(|s| {
-                            combos
-                                .iter()
-                                .map(|c| plan.reduced_bispectrum(s, [l1, l2, l3], *c))
-                                .collect()
-                        })
-                        .collect();
-                    let ci = [
-                        plan.inverse_covariance(fs, l1),
-                        plan.inverse_covariance(fs, l2),
-                        plan.inverse_covariance(fs, l3),
-                    ];
-                    for i in 0..ns {
-                        for j in 0..ns {
-                            let mut acc = 0.0;
-                            for (ia, a) in combos.iter().enumerate() {
-                                for (ib, bb) in combos.iter().enumerate() {
-                                    let mut c = 1.0;
-                                    for leg in 0..3 {
-                                        c *= cinv_entry(&ci[leg], fields(a[leg]), fields(bb[leg]));
-                                    }
-                                    if c != 0.0 {
-                                        acc += b[i][ia] * c * b[j][ib];
-                                    }
-                                }
-                            }
-                            f[i * ns + j] += g2 * acc;
-                        }
-                    }
-                }
-            }
-        }
-        f.iter().map(|v| v * f_sky / 6.0).collect()
-    }
-
     /// The plan for local f_NL, temperature only, on one l_max.
     fn local_t_plan(
         tr: &TransferTable,
@@ -1550,7 +1529,7 @@ pub(crate) mod tests {
         let par = cmb_fisher_with_tol(&plan, &grid, true, 0.0);
         for (ifs, _) in fsets.iter().enumerate() {
             for (m, &lm) in grid.iter().enumerate() {
-                let brute = brute_force(&plan, ifs, lm, exp.f_sky);
+                let brute = brute_force_fisher(&plan, ifs, lm, false);
                 let f = &fast.fisher[ifs][m];
                 for i in 0..sh.len() {
                     for j in 0..sh.len() {

@@ -3,6 +3,7 @@
 //! solvers live with their users: `cmb::stiff` for recombination, `cmb::boltzmann`'s
 //! Dormand-Prince for the perturbations.)
 
+pub mod gemm;
 pub mod interp;
 pub mod quad;
 
