@@ -143,22 +143,47 @@ where
         .map_err(draw_err)
 }
 
-/// Tick label: compact numbers; on log axes only 1, 2 and 5 times a power of ten.
+/// Tick label: compact numbers (log axes carry their own key points, [`log_keys`]).
 fn tick(v: f64, log: bool) -> String {
-    if !v.is_finite() {
+    if !v.is_finite() || (log && v <= 0.0) {
         return String::new();
-    }
-    if log {
-        if v <= 0.0 {
-            return String::new();
-        }
-        let m = v / 10f64.powf(v.log10().floor());
-        if ![1.0, 2.0, 5.0].iter().any(|t| (m - t).abs() < 1e-6 * t) {
-            return String::new();
-        }
     }
     let s = crate::report::format_sig(v, 4);
     crate::report::trim_zeros_public(&s)
+}
+
+/// Key points of a log axis over [a, b]: 1, 2, 5 times powers of ten, with 3 (and then
+/// every integer mantissa) added when that leaves fewer than four labels.
+fn log_keys(a: f64, b: f64) -> Vec<f64> {
+    let (lo, hi) = (a.min(b), a.max(b));
+    if !(lo > 0.0 && hi.is_finite()) {
+        return Vec::new();
+    }
+    let pick = |mantissas: &[f64]| -> Vec<f64> {
+        let mut out = Vec::new();
+        let mut p = 10f64.powf(lo.log10().floor());
+        while p <= hi * 1.000_001 {
+            for &m in mantissas {
+                let v = m * p;
+                if v >= lo * 0.999_999 && v <= hi * 1.000_001 {
+                    out.push(v);
+                }
+            }
+            p *= 10.0;
+        }
+        out
+    };
+    for set in [
+        &[1.0, 2.0, 5.0][..],
+        &[1.0, 2.0, 3.0, 5.0],
+        &[1.0, 2.0, 3.0, 4.0, 5.0, 6.0, 7.0, 8.0, 9.0],
+    ] {
+        let k = pick(set);
+        if k.len() >= 4 {
+            return k;
+        }
+    }
+    pick(&[1.0, 2.0, 3.0, 4.0, 5.0, 6.0, 7.0, 8.0, 9.0])
 }
 
 fn draw_lines<DB: DrawingBackend>(
@@ -194,6 +219,8 @@ where
                 .y_desc(&p.y_label)
                 .label_style(font(26))
                 .axis_desc_style(font(30))
+                .x_labels(7)
+                .y_labels(6)
                 .x_label_formatter(&|v| tick(*v, p.log_x))
                 .y_label_formatter(&|v| tick(*v, p.log_y))
                 .light_line_style(WHITE)
@@ -271,16 +298,25 @@ where
     }
     match (p.log_x, p.log_y) {
         (true, true) => body!(
-            b.build_cartesian_2d((x0..x1).log_scale(), (y0..y1).log_scale())
-                .map_err(draw_err)?
+            b.build_cartesian_2d(
+                (x0..x1).log_scale().with_key_points(log_keys(x0, x1)),
+                (y0..y1).log_scale().with_key_points(log_keys(y0, y1))
+            )
+            .map_err(draw_err)?
         ),
         (true, false) => body!(
-            b.build_cartesian_2d((x0..x1).log_scale(), y0..y1)
-                .map_err(draw_err)?
+            b.build_cartesian_2d(
+                (x0..x1).log_scale().with_key_points(log_keys(x0, x1)),
+                y0..y1
+            )
+            .map_err(draw_err)?
         ),
         (false, true) => body!(
-            b.build_cartesian_2d(x0..x1, (y0..y1).log_scale())
-                .map_err(draw_err)?
+            b.build_cartesian_2d(
+                x0..x1,
+                (y0..y1).log_scale().with_key_points(log_keys(y0, y1))
+            )
+            .map_err(draw_err)?
         ),
         (false, false) => body!(b.build_cartesian_2d(x0..x1, y0..y1).map_err(draw_err)?),
     }
@@ -452,8 +488,12 @@ where
         .y_label_area_size(120)
         .caption(&p.title, font(34))
         .build_cartesian_2d(
-            (ex[0]..ex[ex.len() - 1]).log_scale(),
-            (ey[0]..ey[ey.len() - 1]).log_scale(),
+            (ex[0]..ex[ex.len() - 1])
+                .log_scale()
+                .with_key_points(log_keys(ex[0], ex[ex.len() - 1])),
+            (ey[0]..ey[ey.len() - 1])
+                .log_scale()
+                .with_key_points(log_keys(ey[0], ey[ey.len() - 1])),
         )
         .map_err(draw_err)?;
     chart
@@ -638,6 +678,20 @@ where
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn log_axis_key_points() {
+        let close = |a: &[f64], b: &[f64]| {
+            a.len() == b.len() && a.iter().zip(b).all(|(x, y)| (x / y - 1.0).abs() < 1e-12)
+        };
+        let k = log_keys(250.0, 3000.0);
+        assert!(close(&k, &[300.0, 500.0, 1000.0, 2000.0, 3000.0]), "{k:?}");
+        let k = log_keys(1.0, 1000.0);
+        assert_eq!(k.len(), 10, "{k:?}");
+        let k = log_keys(40.0, 60.0);
+        assert!(close(&k, &[40.0, 50.0, 60.0]), "{k:?}");
+        assert!(log_keys(0.0, 10.0).is_empty());
+    }
 
     #[test]
     fn chi_square_levels() {
