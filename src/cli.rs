@@ -227,9 +227,11 @@ pub struct CmbArgs {
     /// The ideal experiment: no noise, full sky (the default without --experiment).
     #[arg(long)]
     pub ideal: bool,
-    /// Transfer functions: the finite-thickness shell model, or the full Boltzmann solution.
-    #[arg(long, value_enum, default_value_t = crate::scenario::TransferChoice::Shell)]
-    pub transfer: crate::scenario::TransferChoice,
+    /// Transfer functions: the full Boltzmann solution (the default; solved once per
+    /// cosmology and cached), or the finite-thickness shell model (the default when
+    /// --shell-width or --no-damping is given).
+    #[arg(long, value_enum)]
+    pub transfer: Option<crate::scenario::TransferChoice>,
     /// Shell model: Gaussian width of the last-scattering shell in Mpc (0 = zero thickness).
     #[arg(long, value_name = "MPC")]
     pub shell_width: Option<f64>,

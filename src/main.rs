@@ -114,9 +114,17 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                 exp.lmax_t = top;
                 exp.lmax_e = top;
             }
+            // Full transfer unless the shell model's own options ask for the shell.
+            let transfer = a
+                .transfer
+                .unwrap_or(if a.shell_width.is_some() || a.no_damping {
+                    ngreach::scenario::TransferChoice::Shell
+                } else {
+                    ngreach::scenario::TransferChoice::Full
+                });
             let opts = commands::cmb::CmbOptions {
                 experiment: exp,
-                transfer: a.transfer,
+                transfer,
                 shell_width_mpc: a.shell_width,
                 damping: !a.no_damping,
                 lmax,

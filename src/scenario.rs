@@ -9,7 +9,7 @@
 //! kmax_h_mpc = [0.05, 0.1, 0.2]
 //! fields = ["T", "E", "T+E"]         # optional
 //! probes = ["P", "B", "P+B"]         # optional
-//! transfer = "shell"                 # or "full"
+//! transfer = "full"                  # or "shell" (default "full")
 //! linear_power = "eisenstein-hu"     # or "boltzmann" (the survey side's T(k))
 //!
 //! [cosmology]                        # optional; Planck 2018 defaults
@@ -459,7 +459,7 @@ pub fn resolve_scenario(src: &Source, files: &dyn FileResolver) -> Result<Scenar
         kmax_h_mpc: kmax,
         fields,
         probes,
-        transfer: t.transfer.unwrap_or(TransferChoice::Shell),
+        transfer: t.transfer.unwrap_or(TransferChoice::Full),
         linear_power,
         shell_width_mpc,
         damping: t.damping,

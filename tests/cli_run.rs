@@ -123,6 +123,8 @@ fn run_writes_every_output_and_matches_the_engines() {
     // The CMB engine run on its own gives the same numbers.
     let c = run_json(&[
         "cmb",
+        "--transfer",
+        "shell",
         "--experiment",
         "surveys/cmb_satellite.toml",
         "--lmax",
@@ -424,10 +426,26 @@ fn bad_scenario_and_cmb_inputs_exit_2() {
         vec!["cmb", "--fields", "B"],
         vec!["cmb", "--fsky", "2"],
         vec!["cmb", "--experiment", "nope.toml"],
+        vec!["cmb", "--transfer", "full", "--no-damping"],
+        vec!["cmb", "--transfer", "full", "--shell-width", "20"],
     ] {
         let o = run(&args);
         assert_eq!(o.status.code(), Some(2), "{args:?}: {}", stderr(&o));
         assert!(!stderr(&o).contains("panicked"));
     }
+    // The shell model's own options select it when --transfer is not given.
+    let v = run_json(&[
+        "cmb",
+        "--no-damping",
+        "--lmax",
+        "40",
+        "--fields",
+        "T",
+        "--shapes",
+        "local",
+        "--format",
+        "json",
+    ]);
+    assert_eq!(v["inputs"]["transfer"]["model"], "shell", "{}", v["inputs"]);
     std::fs::remove_dir_all(&d).ok();
 }

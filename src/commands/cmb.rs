@@ -72,6 +72,12 @@ pub fn cmb_report(
             message: "--shell-width applies to --transfer shell only".into(),
         });
     }
+    if !opts.damping && opts.transfer != TransferChoice::Shell {
+        return Err(Error::Conflict {
+            at: Location::Flag("--no-damping".into()),
+            message: "--no-damping applies to --transfer shell only".into(),
+        });
+    }
     let bg = Background::new(c);
     let top = *lmax.last().unwrap_or(&2000);
     let th = ThermalHistory::new(c, &bg)?;
