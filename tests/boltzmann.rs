@@ -378,7 +378,6 @@ fn bad_settings_are_typed_errors() {
 }
 
 #[test]
-#[ignore = "about a minute of CPU: run with --ignored"]
 fn precision_two_changes_cl_little() {
     // Convergence: precision 2 (finer k, time and l sampling, longer hierarchies, tighter
     // tolerances, larger k range) against precision 1, sampled-l route, l_max = 2500.
