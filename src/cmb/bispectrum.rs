@@ -795,34 +795,25 @@ pub fn cmb_fisher_with_options(
         }
     }
     let build = |&(l0, l1, seg, last): &(usize, usize, usize, bool)| -> LBlock {
+        let empty = |l1: usize| LBlock {
+            l0,
+            l1,
+            seg,
+            last,
+            r0: 0,
+            w: 0,
+            q: 0,
+            u: Vec::new(),
+            v: vec![Vec::new(); ne],
+        };
         if l1 < l0 {
-            return LBlock {
-                l0,
-                l1: l0,
-                seg,
-                last,
-                r0: 0,
-                w: 0,
-                q: 0,
-                u: Vec::new(),
-                v: vec![Vec::new(); ne],
-            };
+            return empty(l0);
         }
         let (r0, r1) = (l0..=l1).fold((n_r, 0), |(a, b), l| {
             (a.min(active[l].0), b.max(active[l].1))
         });
         if r1 <= r0 {
-            return LBlock {
-                l0,
-                l1,
-                seg,
-                last,
-                r0: 0,
-                w: 0,
-                q: 0,
-                u: Vec::new(),
-                v: vec![Vec::new(); ne],
-            };
+            return empty(l1);
         }
         let (q, u, v) = compress_block(plan, l0, l1, r0, r1, tol);
         LBlock {
