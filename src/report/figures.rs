@@ -152,8 +152,8 @@ fn tick(v: f64, log: bool) -> String {
     crate::report::trim_zeros_public(&s)
 }
 
-/// Key points of a log axis over [a, b]: 1, 2, 5 times powers of ten, with 3 (and then
-/// every integer mantissa) added when that leaves fewer than four labels.
+/// Key points of a log axis over [a, b]: 1, 2, 5 times powers of ten, with 3, then 1.5
+/// and 7, then every integer mantissa added while that leaves fewer than four labels.
 fn log_keys(a: f64, b: f64) -> Vec<f64> {
     let (lo, hi) = (a.min(b), a.max(b));
     if !(lo > 0.0 && hi.is_finite()) {
@@ -176,7 +176,7 @@ fn log_keys(a: f64, b: f64) -> Vec<f64> {
     for set in [
         &[1.0, 2.0, 5.0][..],
         &[1.0, 2.0, 3.0, 5.0],
-        &[1.0, 2.0, 3.0, 4.0, 5.0, 6.0, 7.0, 8.0, 9.0],
+        &[1.0, 1.5, 2.0, 3.0, 5.0, 7.0],
     ] {
         let k = pick(set);
         if k.len() >= 4 {
@@ -547,13 +547,18 @@ where
         .margin_bottom(100)
         .margin_right(10)
         .y_label_area_size(110)
-        .build_cartesian_2d(0.0..1.0, lo..hi)
+        .build_cartesian_2d(
+            0.0..1.0,
+            (10f64.powf(lo)..10f64.powf(hi))
+                .log_scale()
+                .with_key_points(log_keys(10f64.powf(lo), 10f64.powf(hi))),
+        )
         .map_err(draw_err)?;
     cb.configure_mesh()
         .disable_x_axis()
         .disable_mesh()
         .y_desc(&p.value_label)
-        .y_label_formatter(&|v| tick(10f64.powf(*v), false))
+        .y_label_formatter(&|v| tick(*v, true))
         .label_style(font(22))
         .axis_desc_style(font(24))
         .draw()
@@ -563,7 +568,7 @@ where
         let a = lo + (hi - lo) * i as f64 / n as f64;
         let b = lo + (hi - lo) * (i + 1) as f64 / n as f64;
         cb.draw_series(std::iter::once(Rectangle::new(
-            [(0.0, a), (1.0, b)],
+            [(0.0, 10f64.powf(a)), (1.0, 10f64.powf(b))],
             ramp(i as f64 / (n - 1) as f64).filled(),
         )))
         .map_err(draw_err)?;
@@ -688,6 +693,8 @@ mod tests {
         assert!(close(&k, &[300.0, 500.0, 1000.0, 2000.0, 3000.0]), "{k:?}");
         let k = log_keys(1.0, 1000.0);
         assert_eq!(k.len(), 10, "{k:?}");
+        let k = log_keys(0.025, 0.11);
+        assert!(close(&k, &[0.03, 0.05, 0.07, 0.1]), "{k:?}");
         let k = log_keys(40.0, 60.0);
         assert!(close(&k, &[40.0, 50.0, 60.0]), "{k:?}");
         assert!(log_keys(0.0, 10.0).is_empty());
