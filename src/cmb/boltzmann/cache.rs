@@ -22,6 +22,11 @@
 //! internal length agree; otherwise the table is recomputed and the file replaced. Writes
 //! go to a temporary file in the same directory that is then renamed over the target, so
 //! a reader never sees a half-written table.
+//!
+//! Size: an every-l table to l_max = 3000 is about 240 MB, so a batch over many
+//! cosmologies would fill a disk. After each store the directory's tables are pruned,
+//! least recently used first (a hit refreshes a file's modification time), to at most
+//! `NGREACH_CACHE_MAX_GB` gigabytes (default 4); the table just written is always kept.
 
 use std::io::Write;
 use std::path::{Path, PathBuf};
@@ -38,6 +43,8 @@ const FORMAT_VERSION: u32 = 1;
 /// Bumped whenever the solver's numerics change what it computes.
 const SOLVER_VERSION: u64 = 2;
 const HEADER_LEN: usize = 40;
+/// Default size limit of the cache directory's tables, in GB.
+const DEFAULT_MAX_GB: f64 = 4.0;
 
 /// Where (and whether) to cache transfer tables.
 #[derive(Debug, Clone, Default, PartialEq, Eq)]
@@ -421,7 +428,13 @@ pub fn cached_transfer(
     let path = cache_file(&dir, key);
     let previous = if path.exists() {
         match read_table(&path, key, settings.lmax) {
-            Ok(t) => return Ok((t, CacheStatus::Hit(path))),
+            Ok(t) => {
+                // Least-recently-used order for pruning (best effort).
+                if let Ok(f) = std::fs::File::options().append(true).open(&path) {
+                    let _ = f.set_modified(std::time::SystemTime::now());
+                }
+                return Ok((t, CacheStatus::Hit(path)));
+            }
             Err(reason) => Some(reason),
         }
     } else {
@@ -430,12 +443,61 @@ pub fn cached_transfer(
     let table = compute()?;
     let status = match write_table(&path, key, &table) {
         Err(reason) => CacheStatus::StoreFailed { path, reason },
-        Ok(()) => match previous {
-            Some(reason) => CacheStatus::Replaced { path, reason },
-            None => CacheStatus::Stored(path),
-        },
+        Ok(()) => {
+            prune(&dir, &path, max_bytes());
+            match previous {
+                Some(reason) => CacheStatus::Replaced { path, reason },
+                None => CacheStatus::Stored(path),
+            }
+        }
     };
     Ok((table, status))
+}
+
+/// The size limit: `NGREACH_CACHE_MAX_GB` (a positive number) or the default.
+fn max_bytes() -> u64 {
+    let gb = std::env::var("NGREACH_CACHE_MAX_GB")
+        .ok()
+        .and_then(|v| v.trim().parse::<f64>().ok())
+        .filter(|v| v.is_finite() && *v > 0.0)
+        .unwrap_or(DEFAULT_MAX_GB);
+    (gb * 1e9) as u64
+}
+
+/// Deletes the oldest `transfer-*.bin` tables in `dir` until they total at most `limit`
+/// bytes, never `keep`. Returns the files removed. Best effort: errors are ignored.
+pub fn prune(dir: &Path, keep: &Path, limit: u64) -> Vec<PathBuf> {
+    let Ok(entries) = std::fs::read_dir(dir) else {
+        return Vec::new();
+    };
+    let mut files: Vec<(std::time::SystemTime, u64, PathBuf)> = entries
+        .filter_map(|e| e.ok())
+        .filter_map(|e| {
+            let p = e.path();
+            let name = p.file_name()?.to_str()?.to_string();
+            if !(name.starts_with("transfer-") && name.ends_with(".bin")) {
+                return None;
+            }
+            let m = e.metadata().ok()?;
+            Some((m.modified().ok()?, m.len(), p))
+        })
+        .collect();
+    let mut total: u64 = files.iter().map(|f| f.1).sum();
+    files.sort_by(|a, b| a.0.cmp(&b.0));
+    let mut removed = Vec::new();
+    for (_, len, p) in files {
+        if total <= limit {
+            break;
+        }
+        if p == keep {
+            continue;
+        }
+        if std::fs::remove_file(&p).is_ok() {
+            total = total.saturating_sub(len);
+            removed.push(p);
+        }
+    }
+    removed
 }
 
 #[cfg(test)]
@@ -465,6 +527,31 @@ mod tests {
             std::env::temp_dir().join(format!("ngreach-cache-test-{name}-{}", std::process::id()));
         let _ = std::fs::remove_dir_all(&d);
         d
+    }
+
+    /// Pruning removes the least recently modified tables first, keeps the named one and
+    /// leaves other files alone.
+    #[test]
+    fn prune_removes_oldest_tables_first() {
+        let d = tmpdir("prune");
+        std::fs::create_dir_all(&d).unwrap();
+        let t0 = std::time::SystemTime::now() - std::time::Duration::from_secs(1000);
+        let mut paths = Vec::new();
+        for i in 0..4u64 {
+            let p = d.join(format!("transfer-{i:016x}.bin"));
+            std::fs::write(&p, vec![0u8; 100]).unwrap();
+            let f = std::fs::File::options().append(true).open(&p).unwrap();
+            f.set_modified(t0 + std::time::Duration::from_secs(10 * i))
+                .unwrap();
+            paths.push(p);
+        }
+        std::fs::write(d.join("notes.txt"), vec![0u8; 500]).unwrap();
+        // Keep the oldest explicitly; limit 200 bytes: the next two oldest go.
+        let removed = prune(&d, &paths[0], 200);
+        assert_eq!(removed, vec![paths[1].clone(), paths[2].clone()]);
+        assert!(paths[0].exists() && paths[3].exists() && d.join("notes.txt").exists());
+        assert!(prune(&d, &paths[0], 1000).is_empty());
+        std::fs::remove_dir_all(&d).ok();
     }
 
     #[test]
