@@ -483,7 +483,7 @@ pub fn prune(dir: &Path, keep: &Path, limit: u64) -> Vec<PathBuf> {
         })
         .collect();
     let mut total: u64 = files.iter().map(|f| f.1).sum();
-    files.sort_by(|a, b| a.0.cmp(&b.0));
+    files.sort_by_key(|f| f.0);
     let mut removed = Vec::new();
     for (_, len, p) in files {
         if total <= limit {
