@@ -1488,6 +1488,30 @@ pub(crate) mod tests {
         })
     }
 
+    const ALL_FIELD_SETS: [FieldSet; 3] = [FieldSet::T, FieldSet::E, FieldSet::TE];
+
+    /// A plan for T, E and T+E with the toy primordial spectrum.
+    fn all_fields_plan(
+        tr: &TransferTable,
+        radial: &RadialGrid,
+        exp: &Experiment,
+        sh: &[Shape],
+        grid: &[usize],
+        parallel: bool,
+    ) -> BispectrumPlan {
+        BispectrumPlan::new(&CmbFisherInput {
+            transfer: tr,
+            primordial: Primordial::from_values(2.1e-9, 0.965, 0.05),
+            shapes: sh,
+            experiment: exp,
+            t_cmb_k: 2.7255,
+            lmax_grid: grid,
+            field_sets: &ALL_FIELD_SETS,
+            radial,
+            parallel,
+        })
+    }
+
     fn shapes() -> Vec<Shape> {
         ["local", "equilateral", "orthogonal", "delta=0.5"]
             .iter()
@@ -1502,20 +1526,9 @@ pub(crate) mod tests {
         let radial = toy_radial(600.0, 8);
         let exp = experiment(lmax, true);
         let sh = shapes();
-        let fsets = [FieldSet::T, FieldSet::E, FieldSet::TE];
+        let fsets = ALL_FIELD_SETS;
         let grid = [12, 18, lmax];
-        let inp = CmbFisherInput {
-            transfer: &tr,
-            primordial: Primordial::from_values(2.1e-9, 0.965, 0.05),
-            shapes: &sh,
-            experiment: &exp,
-            t_cmb_k: 2.7255,
-            lmax_grid: &grid,
-            field_sets: &fsets,
-            radial: &radial,
-            parallel: false,
-        };
-        let plan = BispectrumPlan::new(&inp);
+        let plan = all_fields_plan(&tr, &radial, &exp, &sh, &grid, false);
         let fast = cmb_fisher_with_tol(&plan, &grid, false, 0.0);
         let par = cmb_fisher_with_tol(&plan, &grid, true, 0.0);
         for (ifs, _) in fsets.iter().enumerate() {
@@ -1551,19 +1564,9 @@ pub(crate) mod tests {
         let radial = toy_radial(600.0, 10);
         let exp = experiment(lmax, true);
         let sh = shapes();
-        let fsets = [FieldSet::T, FieldSet::E, FieldSet::TE];
+        let fsets = ALL_FIELD_SETS;
         let grid = [30, lmax];
-        let plan = BispectrumPlan::new(&CmbFisherInput {
-            transfer: &tr,
-            primordial: Primordial::from_values(2.1e-9, 0.965, 0.05),
-            shapes: &sh,
-            experiment: &exp,
-            t_cmb_k: 2.7255,
-            lmax_grid: &grid,
-            field_sets: &fsets,
-            radial: &radial,
-            parallel: true,
-        });
+        let plan = all_fields_plan(&tr, &radial, &exp, &sh, &grid, true);
         let fast = cmb_fisher_with_plan(&plan, &grid, true);
         let mut worst: f64 = 0.0;
         for ifs in 0..fsets.len() {
