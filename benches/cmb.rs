@@ -17,22 +17,25 @@ use std::time::Instant;
 use ngreach::cmb::bispectrum::{
     BispectrumPlan, CmbFisherInput, FieldSet, brute_force_fisher, cmb_fisher_with_plan,
 };
-use ngreach::cmb::boltzmann::{BoltzmannSolver, Settings};
+use ngreach::cmb::boltzmann::CacheOptions;
 use ngreach::cmb::experiment::Experiment;
 use ngreach::cmb::thermal::ThermalHistory;
-use ngreach::cmb::transfer::TransferTable;
+use ngreach::cmb::transfer::{RadialGrid, TransferTable};
 use ngreach::cosmology::{Background, Cosmology, Primordial};
 use ngreach::shapes::Shape;
 use rayon::prelude::*;
 
-fn solve(c: &Cosmology, th: &ThermalHistory, bg: &Background, lmax: usize) -> TransferTable {
-    let settings = Settings {
-        lmax,
-        ..Settings::default()
-    };
-    BoltzmannSolver::new(c, th, bg, settings)
-        .expect("solver")
-        .transfer_table()
+/// The full transfer table (solved, never cached) and its radial grid.
+fn solve(
+    c: &Cosmology,
+    th: &ThermalHistory,
+    bg: &Background,
+    lmax: usize,
+) -> (TransferTable, RadialGrid) {
+    let (table, radial, _) =
+        ngreach::cmb::full_transfer_for(c, th, bg, lmax, &CacheOptions::disabled())
+            .expect("full transfer");
+    (table, radial)
 }
 
 /// Nominal peak in Gflop/s: first "cpu MHz" of /proc/cpuinfo (in a virtual machine often
@@ -85,12 +88,10 @@ fn main() {
     let bg = Background::new(&c);
     let th = ThermalHistory::new(&c, &bg).expect("thermal history");
     let shapes = [Shape::Local, Shape::Equilateral, Shape::Orthogonal];
-    let spec = ngreach::cmb::bispectrum_radial_spec();
 
     let t0 = Instant::now();
-    let table = solve(&c, &th, &bg, lmax);
+    let (table, radial) = solve(&c, &th, &bg, lmax);
     let t_transfer = t0.elapsed().as_secs_f64();
-    let radial = ngreach::cmb::radial_grid_for_table(&th, &table, &spec).expect("radial grid");
     let exp = Experiment::ideal(lmax);
     let mut grid: Vec<usize> = [100, 200, 300, 500, 750, 1000, 1500, 2000, 2500, 3000]
         .iter()
@@ -171,8 +172,7 @@ fn main() {
 
     // Speed-up over the brute-force oracle at l_max = 300 (T only).
     let lb = 300;
-    let table_b = solve(&c, &th, &bg, lb);
-    let radial_b = ngreach::cmb::radial_grid_for_table(&th, &table_b, &spec).expect("radial");
+    let (table_b, radial_b) = solve(&c, &th, &bg, lb);
     let exp_b = Experiment::ideal(lb);
     let inp_b = CmbFisherInput {
         transfer: &table_b,

@@ -29,7 +29,7 @@ use crate::error::Result;
 
 /// The radial grid used for bispectra: core panels of 8 pi / k_max with 5 nodes (see the
 /// convergence note in [`shell_transfer_for`]).
-pub fn bispectrum_radial_spec() -> shell::RadialGridSpec {
+fn bispectrum_radial_spec() -> shell::RadialGridSpec {
     shell::RadialGridSpec {
         core_panel: 8.0,
         nodes_per_panel: 5,
@@ -84,8 +84,8 @@ pub fn shell_transfer_for(
     Ok((table, radial, meta))
 }
 
-/// The radial grid for bispectra of a full (Boltzmann) transfer table (`spec`: usually
-/// [`bispectrum_radial_spec`]): the shell model's grid for the same thermal history with
+/// The radial grid for bispectra of a full (Boltzmann) transfer table: the shell model's
+/// grid (core panels of 8 pi / k with 5 nodes) for the same thermal history with
 /// its panels set by k = 4 k_D (beyond which the damped transfer functions no longer
 /// matter), whatever the table's k range. Tying the panels to a smaller table k range
 /// (low l_max) would widen them and, through the shell model's rule for an undamped
@@ -96,10 +96,9 @@ pub fn shell_transfer_for(
 ///
 /// # Errors
 /// Invalid shell parameters.
-pub fn radial_grid_for_table(
+fn radial_grid_for_table(
     th: &ThermalHistory,
     table: &transfer::TransferTable,
-    spec: &shell::RadialGridSpec,
 ) -> Result<transfer::RadialGrid> {
     let m = shell::ShellModel::from_thermal(th, &shell::ShellOverrides::default())?;
     let k = table.k().to_vec();
@@ -109,7 +108,7 @@ pub fn radial_grid_for_table(
         k_max: 4.0 * m.k_damping_mpc().unwrap_or(0.14),
         cutoff: shell::KCutoff::Damping,
     };
-    m.radial_grid(&grid, spec)
+    m.radial_grid(&grid, &bispectrum_radial_spec())
 }
 
 /// The full transfer table from the line-of-sight Boltzmann solver (read from the cache
@@ -135,7 +134,7 @@ pub fn full_transfer_for(
         ..boltzmann::Settings::default()
     };
     let (table, status) = boltzmann::cached_transfer(c, &settings, cache)?;
-    let radial = radial_grid_for_table(th, &table, &bispectrum_radial_spec())?;
+    let radial = radial_grid_for_table(th, &table)?;
     let meta = serde_json::json!({
         "model": "full",
         "description": "line-of-sight Boltzmann solution (synchronous gauge, massless neutrinos), unlensed",
