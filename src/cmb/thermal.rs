@@ -128,7 +128,7 @@ use crate::constants::{
 };
 use crate::cosmology::{Background, Cosmology};
 use crate::error::{Error, Location, Result};
-use crate::numerics::{GaussLegendre, UniformHermite};
+use crate::numerics::{GaussLegendre, UniformHermite, uniform_derivatives};
 
 // ---- atomic data (SI; level positions as wavenumbers in 1/m, as listed in SSS99) ----
 
@@ -1244,30 +1244,6 @@ impl ThermalHistory {
         }
         (-self.optical_depth_eta(eta)).exp()
     }
-}
-
-/// Fourth-order finite-difference derivatives of values on a uniform grid (central
-/// five-point stencil inside, one-sided stencils at the two ends on each side).
-fn uniform_derivatives(v: &[f64], h: f64) -> Vec<f64> {
-    let n = v.len();
-    let mut d = vec![0.0; n];
-    if n < 5 {
-        for (i, di) in d.iter_mut().enumerate() {
-            let (lo, hi) = (i.saturating_sub(1), (i + 1).min(n - 1));
-            *di = (v[hi] - v[lo]) / ((hi - lo).max(1) as f64 * h);
-        }
-        return d;
-    }
-    let c = 1.0 / (12.0 * h);
-    for i in 2..n - 2 {
-        d[i] = (v[i - 2] - 8.0 * v[i - 1] + 8.0 * v[i + 1] - v[i + 2]) * c;
-    }
-    d[0] = (-25.0 * v[0] + 48.0 * v[1] - 36.0 * v[2] + 16.0 * v[3] - 3.0 * v[4]) * c;
-    d[1] = (-3.0 * v[0] - 10.0 * v[1] + 18.0 * v[2] - 6.0 * v[3] + v[4]) * c;
-    let m = n - 1;
-    d[m] = (25.0 * v[m] - 48.0 * v[m - 1] + 36.0 * v[m - 2] - 16.0 * v[m - 3] + 3.0 * v[m - 4]) * c;
-    d[m - 1] = (3.0 * v[m] + 10.0 * v[m - 1] - 18.0 * v[m - 2] + 6.0 * v[m - 3] - v[m - 4]) * c;
-    d
 }
 
 /// Integrates the recombination equations and tabulates x_e and T_m on the ln a grid.

@@ -136,6 +136,47 @@ impl UniformHermite {
     }
 }
 
+/// The quintic Hermite basis on [0, 1] at t: weights [h0, h1, h2, h5, h4, h3] of
+/// (f0, h f0', h^2 f0'', f1, h f1', h^2 f1'') (value, first and second derivative at both
+/// ends, derivatives scaled by the node spacing). Exact for quintic polynomials.
+#[inline]
+pub fn quintic_hermite_weights(t: f64) -> [f64; 6] {
+    let t2 = t * t;
+    let t3 = t2 * t;
+    let h5 = t3 * (10.0 + t * (-15.0 + 6.0 * t));
+    let h0 = 1.0 - h5;
+    let h1 = t + t3 * (-6.0 + t * (8.0 - 3.0 * t));
+    let h2 = 0.5 * t2 + t3 * (-1.5 + t * (1.5 - 0.5 * t));
+    let h4 = t3 * (-4.0 + t * (7.0 - 3.0 * t));
+    let h3 = t3 * (0.5 + t * (-1.0 + 0.5 * t));
+    [h0, h1, h2, h5, h4, h3]
+}
+
+/// Fourth-order finite-difference derivatives of values on a uniform grid of spacing h
+/// (central five-point stencil inside, one-sided five-point stencils at the two nodes of
+/// each end; first-order differences when there are fewer than five values).
+pub fn uniform_derivatives(v: &[f64], h: f64) -> Vec<f64> {
+    let n = v.len();
+    let mut d = vec![0.0; n];
+    if n < 5 {
+        for (i, di) in d.iter_mut().enumerate() {
+            let (lo, hi) = (i.saturating_sub(1), (i + 1).min(n - 1));
+            *di = (v[hi] - v[lo]) / ((hi - lo).max(1) as f64 * h);
+        }
+        return d;
+    }
+    let c = 1.0 / (12.0 * h);
+    for i in 2..n - 2 {
+        d[i] = (v[i - 2] - 8.0 * v[i - 1] + 8.0 * v[i + 1] - v[i + 2]) * c;
+    }
+    d[0] = (-25.0 * v[0] + 48.0 * v[1] - 36.0 * v[2] + 16.0 * v[3] - 3.0 * v[4]) * c;
+    d[1] = (-3.0 * v[0] - 10.0 * v[1] + 18.0 * v[2] - 6.0 * v[3] + v[4]) * c;
+    let m = n - 1;
+    d[m] = (25.0 * v[m] - 48.0 * v[m - 1] + 36.0 * v[m - 2] - 16.0 * v[m - 3] + 3.0 * v[m - 4]) * c;
+    d[m - 1] = (3.0 * v[m] + 10.0 * v[m - 1] - 18.0 * v[m - 2] + 6.0 * v[m - 3] - v[m - 4]) * c;
+    d
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -149,6 +190,36 @@ mod tests {
             let v = 0.3 + i as f64 * 0.018;
             assert!((s.eval(v) - v.sin()).abs() < 2e-6, "{v}");
             assert!((s.deriv(v) - v.cos()).abs() < 2e-4, "{v}");
+        }
+    }
+
+    /// The quintic basis reproduces a quintic; the derivative stencils are exact for a
+    /// quartic.
+    #[test]
+    fn quintic_weights_and_derivatives_are_exact_on_polynomials() {
+        let f = |x: f64| 1.0 - 2.0 * x + 0.5 * x.powi(3) + 0.3 * x.powi(5);
+        let df = |x: f64| -2.0 + 1.5 * x * x + 1.5 * x.powi(4);
+        let ddf = |x: f64| 3.0 * x + 6.0 * x.powi(3);
+        let (a, h) = (0.4, 0.7);
+        for t in [0.0, 0.3, 0.77, 1.0] {
+            let w = quintic_hermite_weights(t);
+            let ends = [
+                f(a),
+                h * df(a),
+                h * h * ddf(a),
+                f(a + h),
+                h * df(a + h),
+                h * h * ddf(a + h),
+            ];
+            let got: f64 = w.iter().zip(ends).map(|(w, e)| w * e).sum();
+            assert!((got - f(a + t * h)).abs() < 1e-13, "{t}");
+        }
+        let q = |x: f64| x.powi(4) - x;
+        let v: Vec<f64> = (0..9).map(|i| q(0.1 * i as f64)).collect();
+        let d = uniform_derivatives(&v, 0.1);
+        for (i, di) in d.iter().enumerate() {
+            let x = 0.1 * i as f64;
+            assert!((di - (4.0 * x.powi(3) - 1.0)).abs() < 1e-12, "{i}");
         }
     }
 

@@ -7,5 +7,5 @@ pub mod gemm;
 pub mod interp;
 pub mod quad;
 
-pub use interp::{CubicSpline, UniformHermite};
+pub use interp::{CubicSpline, UniformHermite, quintic_hermite_weights, uniform_derivatives};
 pub use quad::{GaussLegendre, integrate_gl_panels, log_grid};

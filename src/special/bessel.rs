@@ -681,15 +681,7 @@ impl BesselTable {
         let t = u - i as f64;
         let [f0, d0, s0] = self.nodes[i];
         let [f1, d1, s1] = self.nodes[i + 1];
-        let t2 = t * t;
-        let t3 = t2 * t;
-        // Quintic Hermite basis on [0, 1].
-        let h5 = t3 * (10.0 + t * (-15.0 + 6.0 * t));
-        let h0 = 1.0 - h5;
-        let h1 = t + t3 * (-6.0 + t * (8.0 - 3.0 * t));
-        let h2 = 0.5 * t2 + t3 * (-1.5 + t * (1.5 - 0.5 * t));
-        let h4 = t3 * (-4.0 + t * (7.0 - 3.0 * t));
-        let h3 = t3 * (0.5 + t * (-1.0 + 0.5 * t));
+        let [h0, h1, h2, h5, h4, h3] = crate::numerics::quintic_hermite_weights(t);
         f0 * h0 + d0 * h1 + s0 * h2 + f1 * h5 + d1 * h4 + s1 * h3
     }
 }

@@ -358,14 +358,7 @@ impl PairTables {
         let i = (rel as usize).min(d.len().saturating_sub(2));
         let t = rel - i as f64;
         let (p0, p1) = (&d[i], &d[i + 1]);
-        let t2 = t * t;
-        let t3 = t2 * t;
-        let h5 = t3 * (10.0 + t * (-15.0 + 6.0 * t));
-        let h0 = 1.0 - h5;
-        let h1 = t + t3 * (-6.0 + t * (8.0 - 3.0 * t));
-        let h2 = 0.5 * t2 + t3 * (-1.5 + t * (1.5 - 0.5 * t));
-        let h4 = t3 * (-4.0 + t * (7.0 - 3.0 * t));
-        let h3 = t3 * (0.5 + t * (-1.0 + 0.5 * t));
+        let [h0, h1, h2, h5, h4, h3] = crate::numerics::quintic_hermite_weights(t);
         let v = |o: usize| {
             p0[o] * h0
                 + p0[o + 1] * h1

@@ -15,6 +15,7 @@ use crate::cmb::ThermalHistory;
 use crate::constants::{C_M_S, HE_TO_H_MASS, K_BOLTZMANN, M_HYDROGEN};
 use crate::cosmology::{Background, Cosmology};
 use crate::error::{Error, Result};
+use crate::numerics::uniform_derivatives;
 
 /// Earliest tabulated conformal time, Mpc (a ~ 2e-9).
 pub(crate) const ETA_MIN: f64 = 1.0e-3;
@@ -144,8 +145,8 @@ impl Timeline {
             t_prev = Some((tb.ln(), x));
             cs2.push(K_BOLTZMANN * tb * (1.0 + f_he + xe) / mu_num * (1.0 - dlt / 3.0));
         }
-        let dlnk = derivative(&lnk, du);
-        let dcs2 = derivative(&cs2, du);
+        let dlnk = uniform_derivatives(&lnk, du);
+        let dcs2 = uniform_derivatives(&cs2, du);
         Ok(Self {
             u0,
             du,
@@ -229,22 +230,6 @@ impl Timeline {
             r: self.r_coef / a,
         }
     }
-}
-
-/// Fourth-order finite-difference derivative on a uniform grid.
-fn derivative(v: &[f64], h: f64) -> Vec<f64> {
-    let n = v.len();
-    let mut d = vec![0.0; n];
-    let c = 1.0 / (12.0 * h);
-    for i in 2..n - 2 {
-        d[i] = (v[i - 2] - 8.0 * v[i - 1] + 8.0 * v[i + 1] - v[i + 2]) * c;
-    }
-    d[0] = (-25.0 * v[0] + 48.0 * v[1] - 36.0 * v[2] + 16.0 * v[3] - 3.0 * v[4]) * c;
-    d[1] = (-3.0 * v[0] - 10.0 * v[1] + 18.0 * v[2] - 6.0 * v[3] + v[4]) * c;
-    let m = n - 1;
-    d[m] = (25.0 * v[m] - 48.0 * v[m - 1] + 36.0 * v[m - 2] - 16.0 * v[m - 3] + 3.0 * v[m - 4]) * c;
-    d[m - 1] = (3.0 * v[m] + 10.0 * v[m - 1] - 18.0 * v[m - 2] + 6.0 * v[m - 3] - v[m - 4]) * c;
-    d
 }
 
 #[cfg(test)]
