@@ -119,8 +119,48 @@ impl Shard {
 /// # Errors
 /// Located input errors in the plan or in any expanded scenario.
 pub fn load_plan(path: &Path) -> Result<Plan> {
+    load_plan_with(path, &crate::limits::Limits::default())
+}
+
+/// [`load_plan`] with cost limits: the grid size is estimated before any scenario is
+/// expanded, and a plan above [`crate::limits::MAX_PLAN_POINTS`] points is refused
+/// unless `limits` allow it.
+///
+/// # Errors
+/// As [`load_plan`]; [`Error::TooLarge`] for a grid above the limits.
+pub fn load_plan_with(path: &Path, limits: &crate::limits::Limits) -> Result<Plan> {
     let src = Source::read(path)?;
     let pf: PlanFile = parse_toml(&src)?;
+    for (i, v) in pf.plan.vary.iter().enumerate() {
+        if pf.plan.vary[..i]
+            .iter()
+            .any(|o| o.path.get_ref() == v.path.get_ref())
+        {
+            return Err(Error::BadField {
+                at: src.at(&v.path),
+                field: "vary.path".into(),
+                message: format!(
+                    "`{}` is varied twice; give all its values in one [[plan.vary]]",
+                    v.path.get_ref()
+                ),
+            });
+        }
+        limits.list(src.at(&v.values), "values", v.values.get_ref().len())?;
+    }
+    let points_estimate = pf
+        .plan
+        .vary
+        .iter()
+        .map(|v| v.values.get_ref().len() as f64)
+        .product::<f64>();
+    limits.guard(
+        Location::WholeFile(path.to_path_buf()),
+        "the plan's grid (the product of its [[plan.vary]] list lengths)",
+        points_estimate,
+        crate::limits::MAX_PLAN_POINTS as f64,
+        "scenarios",
+        "vary fewer values or split the plan",
+    )?;
     let dir = path.parent().map(Path::to_path_buf).unwrap_or_default();
     let base_name = pf.plan.scenario.get_ref().clone();
     let (base_src, resolver): (Source, Box<dyn FileResolver>) = if base_name == "demo" {
@@ -370,6 +410,34 @@ pub fn write_point(dir: &Path, p: &PlanPoint) -> Result<()> {
         &dir.join("point.json"),
         (serde_json::to_string_pretty(&j).unwrap_or_default() + "\n").as_bytes(),
     )
+}
+
+/// A warning when the finished scenario folders under `out` leave gaps in the grid
+/// (indices from `point.json` below the largest one missing), as after merging only some
+/// of the shards; None when the indices are 0..n without gaps.
+pub fn grid_gaps(out: &Path) -> Option<String> {
+    let mut idx: Vec<u64> = std::fs::read_dir(out)
+        .ok()?
+        .filter_map(|e| e.ok().map(|e| e.path()))
+        .filter(|p| p.join("summary.json").is_file())
+        .filter_map(|p| {
+            let text = std::fs::read_to_string(p.join("point.json")).ok()?;
+            serde_json::from_str::<Value>(&text).ok()?["index"].as_u64()
+        })
+        .collect();
+    idx.sort_unstable();
+    idx.dedup();
+    let top = *idx.last()?;
+    let missing = (top + 1).saturating_sub(idx.len() as u64);
+    (missing > 0).then(|| {
+        format!(
+            "{}: {} grid point(s) below index {top} are missing (only {} of at least {} scenarios); merge the remaining shards",
+            out.display(),
+            missing,
+            idx.len(),
+            top + 1
+        )
+    })
 }
 
 #[cfg(test)]

@@ -18,6 +18,14 @@ pub struct Cli {
     /// What to compute.
     #[command(subcommand)]
     pub command: Command,
+    /// No progress bar or progress lines on stderr (warnings and errors still show).
+    #[arg(long, short, global = true)]
+    pub quiet: bool,
+    /// Run requests whose estimated work exceeds the built-in limits (survey triangles,
+    /// plan grid points, list lengths); without it such requests are refused with the
+    /// estimate.
+    #[arg(long, global = true)]
+    pub allow_large: bool,
 }
 
 /// Options every physics command accepts.
@@ -77,7 +85,7 @@ pub struct BatchArgs {
     /// Run only shard I of N (0-based), e.g. for array job I of a cluster scheduler.
     #[arg(long, value_name = "I/N")]
     pub shard: Option<String>,
-    /// Worker threads.
+    /// Worker threads (at most 4 per core).
     #[arg(long, value_name = "N")]
     pub threads: Option<usize>,
     /// Transfer-table cache.
@@ -113,10 +121,7 @@ pub struct RunArgs {
     /// Folder for the output files.
     #[arg(long, value_name = "DIR", default_value = "ngreach-out")]
     pub out: PathBuf,
-    /// No progress line on stderr.
-    #[arg(long, short)]
-    pub quiet: bool,
-    /// Worker threads (1 runs the serial path).
+    /// Worker threads (1 runs the serial path; at most 4 per core).
     #[arg(long, value_name = "N")]
     pub threads: Option<usize>,
     /// Override the scenario's cosmology with a [cosmology] file.
@@ -210,7 +215,7 @@ pub struct SurveyArgs {
     /// transfer function (a matter-only solve, about a second).
     #[arg(long, value_enum, value_name = "MODEL", default_value_t = crate::scenario::LinearPowerChoice::EisensteinHu)]
     pub linear_power: crate::scenario::LinearPowerChoice,
-    /// Worker threads (1 runs the serial path).
+    /// Worker threads (1 runs the serial path; at most 4 per core).
     #[arg(long, value_name = "N")]
     pub threads: Option<usize>,
     /// Shared options.
@@ -260,7 +265,7 @@ pub struct CmbArgs {
     /// Override the experiment's sky fraction.
     #[arg(long, value_name = "F", allow_hyphen_values = true)]
     pub fsky: Option<f64>,
-    /// Worker threads (1 runs the serial path).
+    /// Worker threads (1 runs the serial path; at most 4 per core).
     #[arg(long, value_name = "N")]
     pub threads: Option<usize>,
     /// Transfer-table cache.

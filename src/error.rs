@@ -25,6 +25,8 @@ pub enum Location {
     WholeFile(PathBuf),
     /// A command-line flag such as `--z`.
     Flag(String),
+    /// An environment variable such as `NGREACH_CACHE_MAX_GB`.
+    Env(String),
     /// A built-in default or a value computed from other inputs.
     Builtin,
 }
@@ -37,6 +39,7 @@ impl fmt::Display for Location {
             }
             Location::WholeFile(path) => write!(f, "{}", path.display()),
             Location::Flag(name) => write!(f, "command-line flag {name}"),
+            Location::Env(name) => write!(f, "environment variable {name}"),
             Location::Builtin => write!(f, "built-in input"),
         }
     }
@@ -104,6 +107,18 @@ pub enum Error {
         at: Location,
         /// What conflicts and how to resolve it.
         message: String,
+    },
+    /// A request whose estimated work exceeds the sane limits (see [`crate::limits`]).
+    #[error("{at}: {what}: estimated {estimate}; {hint}")]
+    TooLarge {
+        /// Which input asks for it.
+        at: Location,
+        /// What would be computed.
+        what: String,
+        /// The estimate and the limit, with their unit.
+        estimate: String,
+        /// How to proceed.
+        hint: String,
     },
     /// A numerical method did not reach its target (not the user's fault).
     #[error("numerical failure in {stage}: {message}")]

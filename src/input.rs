@@ -11,6 +11,10 @@ use serde::de::DeserializeOwned;
 
 use crate::error::{Error, Location};
 
+/// The largest input file ngreach reads, in bytes (1 MiB): input files are short
+/// TOML tables, and a limit keeps a device or a huge file from being read whole.
+pub const MAX_INPUT_BYTES: u64 = 1 << 20;
+
 /// The text of an input file, kept so that byte offsets can be turned into lines.
 #[derive(Debug, Clone)]
 pub struct Source {
@@ -19,14 +23,52 @@ pub struct Source {
 }
 
 impl Source {
-    /// Reads a file.
+    /// Reads a file: only a regular file (not a device, pipe or folder) of at most
+    /// [`MAX_INPUT_BYTES`], as UTF-8 text.
     ///
     /// # Errors
-    /// [`Error::Io`] when the file cannot be read.
+    /// [`Error::Io`] when the file cannot be read; [`Error::BadField`] naming the file
+    /// when it is not a regular file, is too large, or is not text.
     pub fn read(path: &Path) -> Result<Self, Error> {
-        let text = std::fs::read_to_string(path).map_err(|source| Error::Io {
+        use std::io::Read;
+        let io = |source| Error::Io {
             path: path.to_path_buf(),
             source,
+        };
+        let bad = |message: String| Error::BadField {
+            at: Location::WholeFile(path.to_path_buf()),
+            field: "file".into(),
+            message,
+        };
+        let meta = std::fs::metadata(path).map_err(io)?;
+        if !meta.is_file() {
+            return Err(bad(
+                "not a regular file; ngreach reads input only from regular files (not folders, devices or pipes)".into(),
+            ));
+        }
+        if meta.len() > MAX_INPUT_BYTES {
+            return Err(bad(format!(
+                "{} bytes, above the input limit of {MAX_INPUT_BYTES} bytes (1 MiB); input files are short TOML tables",
+                meta.len()
+            )));
+        }
+        // Read at most one byte past the limit, in case the file grows meanwhile.
+        let mut bytes = Vec::new();
+        std::fs::File::open(path)
+            .map_err(io)?
+            .take(MAX_INPUT_BYTES + 1)
+            .read_to_end(&mut bytes)
+            .map_err(io)?;
+        if bytes.len() as u64 > MAX_INPUT_BYTES {
+            return Err(bad(format!(
+                "more than {MAX_INPUT_BYTES} bytes (1 MiB), the input limit"
+            )));
+        }
+        let text = String::from_utf8(bytes).map_err(|e| {
+            bad(format!(
+                "not UTF-8 text (invalid byte at offset {})",
+                e.utf8_error().valid_up_to()
+            ))
         })?;
         Ok(Self {
             path: path.to_path_buf(),
@@ -70,10 +112,51 @@ impl Source {
         self.locate(span.start)
     }
 
+    /// The location of `key = ...` inside `[table]` (a dotted name such as
+    /// `survey.priors`; empty for the top level), found in the text; the whole file when
+    /// the key is not written there (a default, or a value set by an override).
+    pub fn find_key(&self, table: &str, key: &str) -> Location {
+        let mut current = String::new();
+        let mut offset = 0;
+        for line in self.text.split_inclusive('\n') {
+            let t = line.trim();
+            if t.starts_with('[') {
+                current = t.trim_matches(|c| c == '[' || c == ']').trim().to_string();
+            } else if current == table {
+                let k = t.split('=').next().unwrap_or("").trim().trim_matches('"');
+                if t.contains('=') && k == key {
+                    let col = line.len() - line.trim_start().len();
+                    return self.locate(offset + col);
+                }
+            }
+            offset += line.len();
+        }
+        Location::WholeFile(self.path.clone())
+    }
+
     /// The location of a spanned value.
     pub fn at<T>(&self, value: &toml::Spanned<T>) -> Location {
         self.locate_span(&value.span())
     }
+}
+
+/// Checks, before a computation, that output files can be written into `dir`: creates
+/// it if needed and writes and removes a probe file.
+///
+/// # Errors
+/// [`Error::BadField`] naming the folder and the flag `flag` when it cannot be created
+/// or written.
+pub fn check_output_dir(dir: &Path, flag: &str) -> Result<(), Error> {
+    let bad = |what: &str, e: std::io::Error| Error::BadField {
+        at: Location::Flag(flag.into()),
+        field: dir.display().to_string(),
+        message: format!("the output folder {what}: {e}"),
+    };
+    std::fs::create_dir_all(dir).map_err(|e| bad("cannot be created", e))?;
+    let probe = dir.join(format!(".ngreach-write-probe-{}", std::process::id()));
+    std::fs::write(&probe, b"").map_err(|e| bad("is not writable", e))?;
+    let _ = std::fs::remove_file(&probe);
+    Ok(())
 }
 
 /// Parses a TOML file into `T`, turning every failure into a located [`Error`].
@@ -215,6 +298,22 @@ mod tests {
             }
             other => panic!("wrong error {other:?}"),
         }
+    }
+
+    #[test]
+    fn finds_keys_in_tables() {
+        let s = Source::from_text("x.toml", "[a]\nk = 1\n[a.b]\nk = 2\n");
+        assert_eq!(s.find_key("a.b", "k").to_string(), "x.toml:4:1");
+        assert_eq!(s.find_key("a", "k").to_string(), "x.toml:2:1");
+        assert_eq!(s.find_key("a", "z").to_string(), "x.toml");
+    }
+
+    #[test]
+    fn reads_only_regular_files() {
+        let e = Source::read(Path::new("/dev/zero")).unwrap_err();
+        assert!(e.to_string().contains("not a regular file"), "{e}");
+        let e = Source::read(Path::new("/")).unwrap_err();
+        assert!(e.to_string().contains("not a regular file"), "{e}");
     }
 
     #[test]

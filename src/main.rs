@@ -1,13 +1,86 @@
 //! The `ngreach` binary: parse, dispatch, report errors. No physics here.
 
-use std::io::Write;
+use std::io::{IsTerminal, Write};
 use std::process::ExitCode;
+use std::sync::Arc;
+use std::time::Duration;
 
 use clap::Parser;
 use ngreach::cli::{Cli, Command};
 use ngreach::commands;
+use ngreach::error::{Error, Location};
+use ngreach::limits::{self, Limits};
+use ngreach::progress::{LogLines, Progress, TerminalBar};
+
+/// How often plain progress lines are written when stderr is not a terminal.
+const LOG_INTERVAL: Duration = Duration::from_secs(30);
+
+/// Prints a warning on stderr (always, also with --quiet).
+fn warn(msg: &str) {
+    eprintln!("warning: {msg}");
+}
+
+/// The progress handle for this invocation: nothing with --quiet, a bar on a terminal,
+/// timestamped lines otherwise.
+fn progress_for(quiet: bool) -> Progress {
+    if quiet {
+        Progress::silent()
+    } else if std::io::stderr().is_terminal() {
+        Progress::new(Arc::new(TerminalBar::new()))
+    } else {
+        Progress::new(Arc::new(LogLines::new(
+            Box::new(std::io::stderr()),
+            LOG_INTERVAL,
+        )))
+    }
+}
+
+/// Validates the environment variables ngreach reads as numbers.
+fn check_env() -> ngreach::Result<()> {
+    if let Some(v) = std::env::var_os("NGREACH_CACHE_MAX_GB") {
+        let text = v.to_string_lossy();
+        match text.trim().parse::<f64>() {
+            Ok(x) if x.is_finite() && x > 0.0 && x <= 1e6 => {}
+            _ => {
+                return Err(Error::BadField {
+                    at: Location::Env("NGREACH_CACHE_MAX_GB".into()),
+                    field: "NGREACH_CACHE_MAX_GB".into(),
+                    message: format!(
+                        "`{text}` is not a cache size: give a number of gigabytes, 0 < size <= 1e6 (or unset it for the default)"
+                    ),
+                });
+            }
+        }
+    }
+    Ok(())
+}
+
+/// Refuses an empty list or a repeated entry given with `flag`.
+fn distinct_flag<T: PartialEq + std::fmt::Debug>(items: &[T], flag: &str) -> ngreach::Result<()> {
+    ngreach::scenario::distinct(
+        items,
+        &Location::Flag(flag.into()),
+        flag.trim_start_matches('-'),
+    )
+}
+
+/// The full CMB transfer needs a cosmological constant: refused at the cosmology file
+/// that was given with `--cosmology`.
+fn check_transfer_cosmology(
+    transfer: ngreach::scenario::TransferChoice,
+    c: &ngreach::cosmology::Cosmology,
+    path: Option<&std::path::Path>,
+) -> ngreach::Result<()> {
+    let at = path.map_or(Location::Builtin, |p| Location::WholeFile(p.to_path_buf()));
+    transfer.check(c, at, "w0")
+}
 
 fn run(cli: Cli) -> ngreach::Result<String> {
+    check_env()?;
+    let progress = progress_for(cli.quiet);
+    let lim = Limits {
+        allow_large: cli.allow_large,
+    };
     match cli.command {
         Command::Background(a) => {
             let (c, src) = commands::resolve_cosmology(a.common.cosmology.as_deref())?;
@@ -16,12 +89,7 @@ fn run(cli: Cli) -> ngreach::Result<String> {
             Ok(commands::background::background_report(&c, &src, &z)?.render(a.common.format))
         }
         Command::Survey(a) => {
-            if let Some(n) = a.threads {
-                // A second call (tests) keeps the first pool; that is harmless.
-                let _ = rayon::ThreadPoolBuilder::new()
-                    .num_threads(n.max(1))
-                    .build_global();
-            }
+            set_threads(a.threads)?;
             let cosmo = match a.common.cosmology.as_deref() {
                 Some(p) => Some(commands::resolve_cosmology(Some(p))?),
                 None => None,
@@ -55,21 +123,85 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                     });
                 }
             };
+            let probes = commands::survey::parse_probes(&a.probes)?;
+            distinct_flag(&probes, "--probes")?;
+            let shapes = commands::survey::parse_shapes(&a.shapes, "--shapes")?;
+            distinct_flag(
+                &shapes.iter().map(|s| s.name()).collect::<Vec<_>>(),
+                "--shapes",
+            )?;
+            // Every k_max is checked for range, repeats, modes and cost before the work.
+            let h = c.h();
+            let kmax_list = a
+                .kmax
+                .clone()
+                .unwrap_or_else(|| vec![survey.kmax_default_mpc / h]);
+            let kat = Location::Flag(if a.kmax.is_some() {
+                "--kmax".into()
+            } else {
+                "--kmax (default)".into()
+            });
+            lim.list(kat.clone(), "kmax", kmax_list.len())?;
+            if a.kmax.is_some() {
+                distinct_flag(&kmax_list, "--kmax")?;
+            }
+            for &k in &kmax_list {
+                if !(k.is_finite() && (1e-3..=5.0).contains(&k)) {
+                    return Err(Error::out_of_range(
+                        kat,
+                        "kmax",
+                        k,
+                        "1e-3 <= kmax <= 5 h/Mpc",
+                    ));
+                }
+            }
+            let growth = ngreach::cosmology::Growth::new(&c);
+            let kmax_mpc: Vec<f64> = kmax_list.iter().map(|k| k * h).collect();
+            let warnings = limits::check_kmax_modes(&survey, &kmax_mpc, &growth, h, &kat, "kmax")?;
+            let top = kmax_mpc.iter().copied().fold(0.0, f64::max);
+            let settings = ngreach::survey::fisher::SurveySettings {
+                parallel: a.threads != Some(1),
+                ..Default::default()
+            };
+            let cost_at = Location::Flag(if a.volume.is_some() {
+                "--kmax / --volume".into()
+            } else {
+                "--kmax".into()
+            });
+            limits::check_survey_cost(&survey, top, &growth, settings.dk_over_kf, cost_at, &lim)?;
+            for w in &warnings {
+                warn(w);
+            }
             let opts = commands::survey::SurveyOptions {
                 kmax_h_mpc: a.kmax,
-                probes: commands::survey::parse_probes(&a.probes)?,
-                shapes: commands::survey::parse_shapes(&a.shapes, "--shapes")?,
+                probes,
+                shapes,
                 linear_power: a.linear_power,
-                settings: ngreach::survey::fisher::SurveySettings {
-                    parallel: a.threads != Some(1),
-                    ..Default::default()
-                },
+                settings,
             };
-            let (r, _) = commands::survey::survey_report(&survey, &c, &src, &opts)?;
+            progress.step(
+                &format!(
+                    "survey Fisher: {} ({} bins)",
+                    survey.name,
+                    survey.bins.len()
+                ),
+                None,
+            );
+            let res = commands::survey::survey_report(&survey, &c, &src, &opts);
+            progress.finish();
+            let (mut r, _) = res?;
+            with_warnings(&mut r, &warnings);
             Ok(r.render(a.common.format))
         }
         Command::Spectra(a) => {
             let (c, src) = commands::resolve_cosmology(a.common.cosmology.as_deref())?;
+            if a.transfer == commands::spectra::TransferKind::Full {
+                check_transfer_cosmology(
+                    ngreach::scenario::TransferChoice::Full,
+                    &c,
+                    a.common.cosmology.as_deref(),
+                )?;
+            }
             let opts = commands::spectra::SpectraOptions {
                 transfer: a.transfer,
                 lmax: a.lmax,
@@ -80,22 +212,19 @@ fn run(cli: Cli) -> ngreach::Result<String> {
             Ok(commands::spectra::spectra_report(&c, &src, &opts)?.render(a.common.format))
         }
         Command::Cmb(a) => {
-            set_threads(a.threads);
+            set_threads(a.threads)?;
             let (c, src) = commands::resolve_cosmology(a.common.cosmology.as_deref())?;
             let mut exp = match &a.experiment {
                 Some(p) => ngreach::cmb::experiment::load_experiment(p)?,
                 None => ngreach::cmb::experiment::Experiment::ideal(2000),
             };
             if let Some(f) = a.fsky {
-                if !(f > 0.0 && f <= 1.0) {
-                    return Err(ngreach::Error::out_of_range(
-                        ngreach::Location::Flag("--fsky".into()),
-                        "fsky",
-                        f,
-                        "0 < fsky <= 1",
-                    ));
-                }
+                ngreach::cmb::experiment::check_f_sky(f, Location::Flag("--fsky".into()), "fsky")?;
                 exp.f_sky = f;
+            }
+            if let Some(l) = &a.lmax {
+                lim.list(Location::Flag("--lmax".into()), "lmax", l.len())?;
+                distinct_flag(l, "--lmax")?;
             }
             let lmax = match a.lmax {
                 Some(v) => v,
@@ -122,31 +251,51 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                 } else {
                     ngreach::scenario::TransferChoice::Full
                 });
+            check_transfer_cosmology(transfer, &c, a.common.cosmology.as_deref())?;
+            let fields = commands::cmb::parse_fields(&a.fields)?;
+            distinct_flag(&fields, "--fields")?;
+            let shapes = commands::survey::parse_shapes(&a.shapes, "--shapes")?;
+            distinct_flag(
+                &shapes.iter().map(|s| s.name()).collect::<Vec<_>>(),
+                "--shapes",
+            )?;
             let opts = commands::cmb::CmbOptions {
                 experiment: exp,
                 transfer,
                 shell_width_mpc: a.shell_width,
                 damping: !a.no_damping,
                 lmax,
-                fields: commands::cmb::parse_fields(&a.fields)?,
-                shapes: commands::survey::parse_shapes(&a.shapes, "--shapes")?,
+                fields,
+                shapes,
                 parallel: a.threads != Some(1),
                 cache: cache_options(&a.cache),
             };
-            let (r, _) = commands::cmb::cmb_report(&c, &src, &opts)?;
-            Ok(r.render(a.common.format))
+            progress.step(
+                "CMB forecast: transfer functions, radial functions, Fisher sums",
+                None,
+            );
+            let res = commands::cmb::cmb_report(&c, &src, &opts);
+            progress.finish();
+            Ok(res?.0.render(a.common.format))
         }
         Command::Batch(a) => {
-            set_threads(a.threads);
+            set_threads(a.threads)?;
             let shard = a
                 .shard
                 .as_deref()
                 .map(ngreach::batch::Shard::parse)
                 .transpose()?;
-            let plan = ngreach::batch::load_plan(&a.plan)?;
+            let plan = ngreach::batch::load_plan_with(&a.plan, &lim)?;
+            for p in &plan.points {
+                for w in limits::check_scenario(&p.scenario, &lim)? {
+                    warn(&format!("grid point {}: {w}", p.index));
+                }
+            }
+            ngreach::input::check_output_dir(&a.out, "--out")?;
             let settings = ngreach::pipeline::RunSettings {
                 parallel: a.threads != Some(1),
                 cache: cache_options(&a.cache),
+                progress: progress.clone(),
                 ..Default::default()
             };
             let r = commands::batch::run_batch(&plan, &a.out, shard, &settings)?;
@@ -162,36 +311,50 @@ fn run(cli: Cli) -> ngreach::Result<String> {
         }
         Command::Merge(a) => {
             let n = commands::batch::merge(&a.out, &a.parts)?;
+            if let Some(w) = ngreach::batch::grid_gaps(&a.out) {
+                warn(&w);
+            }
             Ok(format!(
                 "merged: combined table of {n} scenario(s) in {}/batch_summary.csv\n",
                 a.out.display()
             ))
         }
-        Command::Check(a) => {
-            let mut out = String::new();
-            for f in &a.files {
-                out.push_str(&commands::check::check_file(f)?);
-                out.push('\n');
-            }
-            Ok(out)
-        }
+        Command::Check(_) => Err(Error::Conflict {
+            at: Location::Builtin,
+            message: "`check` is dispatched before the other commands".into(),
+        }),
         Command::Run(a) => {
-            set_threads(a.threads);
+            set_threads(a.threads)?;
             let mut sc = commands::run::scenario_for(a.scenario.as_deref())?;
             if let Some(p) = a.cosmology.as_deref() {
                 sc.cosmology = ngreach::cosmology::load_cosmology_file(p)?;
+                let at = Location::WholeFile(p.to_path_buf());
+                if !sc.experiments.is_empty() {
+                    sc.transfer.check(&sc.cosmology, at.clone(), "w0")?;
+                }
+                if !sc.surveys.is_empty() {
+                    sc.linear_power.check(&sc.cosmology, at, "w0")?;
+                }
             }
+            let warnings = limits::check_scenario(&sc, &lim)?;
+            for w in &warnings {
+                warn(w);
+            }
+            ngreach::input::check_output_dir(&a.out, "--out")?;
             let settings = ngreach::pipeline::RunSettings {
                 parallel: a.threads != Some(1),
                 cache: cache_options(&a.cache),
+                progress: progress.clone(),
                 ..Default::default()
             };
-            let (text, result) = commands::run::run_to_dir(&sc, &a.out, &settings, a.quiet)?;
+            let (text, result) = commands::run::run_to_dir(&sc, &a.out, &settings)?;
             Ok(match a.format {
                 ngreach::report::Format::Json => {
-                    serde_json::to_string_pretty(&ngreach::report::outputs::summary_json(&result))
-                        .unwrap_or_default()
-                        + "\n"
+                    let mut j = ngreach::report::outputs::summary_json(&result);
+                    if let serde_json::Value::Object(m) = &mut j {
+                        m.insert("warnings".into(), warnings.clone().into());
+                    }
+                    serde_json::to_string_pretty(&j).unwrap_or_default() + "\n"
                 }
                 _ => text,
             })
@@ -210,18 +373,70 @@ fn cache_options(a: &ngreach::cli::CacheArgs) -> ngreach::cmb::boltzmann::CacheO
     }
 }
 
-/// Sizes the global thread pool (`--threads`); without it rayon uses every core.
-fn set_threads(n: Option<usize>) {
+/// Adds the warnings to a report's JSON (`warnings`, always present) and notes.
+fn with_warnings(r: &mut ngreach::report::Report, warnings: &[String]) {
+    r.json_extra
+        .push(("warnings".into(), warnings.to_vec().into()));
+    for w in warnings {
+        r.notes.push(format!("warning: {w}"));
+    }
+}
+
+/// Sizes the global thread pool (`--threads`, capped at 4 per core); without it rayon
+/// uses every core.
+fn set_threads(n: Option<usize>) -> ngreach::Result<()> {
     if let Some(n) = n {
+        let (n, capped) = limits::thread_count(n)?;
+        if let Some(w) = capped {
+            warn(&w);
+        }
         // Only the first call can size the pool; later calls are harmless no-ops.
         let _ = rayon::ThreadPoolBuilder::new()
-            .num_threads(n.max(1))
+            .num_threads(n)
             .build_global();
+    }
+    Ok(())
+}
+
+/// `ngreach check FILE...`: every file is checked and every bad one reported (exit 2
+/// when any is bad).
+fn check_all(files: &[std::path::PathBuf], allow_large: bool) -> ExitCode {
+    let lim = Limits { allow_large };
+    let mut out = std::io::stdout().lock();
+    let mut bad = 0;
+    for f in files {
+        match commands::check::check_file_with(f, &lim) {
+            Ok((text, warnings)) => {
+                for w in &warnings {
+                    warn(w);
+                }
+                let _ = writeln!(out, "{text}");
+            }
+            Err(e) => {
+                bad += 1;
+                eprintln!("error: {e}");
+            }
+        }
+    }
+    if bad > 0 {
+        if files.len() > 1 {
+            eprintln!("error: {bad} of {} files failed the check", files.len());
+        }
+        ExitCode::from(2)
+    } else {
+        ExitCode::SUCCESS
     }
 }
 
 fn main() -> ExitCode {
     let cli = Cli::parse();
+    if let Command::Check(a) = &cli.command {
+        if let Err(e) = check_env() {
+            eprintln!("error: {e}");
+            return ExitCode::from(2);
+        }
+        return check_all(&a.files, cli.allow_large);
+    }
     match run(cli) {
         Ok(text) => {
             let mut out = std::io::stdout().lock();

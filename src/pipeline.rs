@@ -64,6 +64,8 @@ pub struct RunSettings {
     pub survey: SurveySettings,
     /// Transfer-table cache of the Boltzmann solver (`transfer = "full"`).
     pub cache: CacheOptions,
+    /// Progress of long steps (silent by default).
+    pub progress: crate::progress::Progress,
 }
 
 impl Default for RunSettings {
@@ -72,6 +74,7 @@ impl Default for RunSettings {
             parallel: true,
             survey: SurveySettings::default(),
             cache: CacheOptions::default(),
+            progress: crate::progress::Progress::silent(),
         }
     }
 }

@@ -47,6 +47,31 @@ pub enum TransferChoice {
     Full,
 }
 
+impl TransferChoice {
+    /// Checks that the transfer model can be computed for a cosmology: the Boltzmann
+    /// solver behind `full` models a cosmological constant only.
+    ///
+    /// # Errors
+    /// [`Error::BadField`] at `at` naming `field`, with w0 and wa, for `full` with
+    /// w0 != -1 or wa != 0.
+    pub fn check(self, cosmo: &Cosmology, at: Location, field: &str) -> Result<()> {
+        let p = cosmo.params();
+        if self == Self::Full && (p.w0 != -1.0 || p.wa != 0.0) {
+            return Err(Error::BadField {
+                at,
+                field: field.into(),
+                message: format!(
+                    "the full CMB transfer (line-of-sight Boltzmann solver) needs a cosmological \
+                     constant (w0 = -1, wa = 0; dark-energy perturbations are not modelled), the \
+                     cosmology has w0 = {}, wa = {}; use transfer = \"shell\" (--transfer shell)",
+                    p.w0, p.wa
+                ),
+            });
+        }
+        Ok(())
+    }
+}
+
 /// Which linear matter power spectrum the survey side uses: the transfer function T(k)
 /// of Eisenstein & Hu (1998) or the z = 0 matter transfer function of the line-of-sight
 /// Boltzmann solver ([`crate::cmb::boltzmann::matter_transfer_of`]).
@@ -104,7 +129,7 @@ struct ScenarioTable {
     kmax_h_mpc: Option<Spanned<Vec<f64>>>,
     fields: Option<Spanned<Vec<String>>>,
     probes: Option<Spanned<Vec<String>>>,
-    transfer: Option<TransferChoice>,
+    transfer: Option<Spanned<TransferChoice>>,
     linear_power: Option<Spanned<LinearPowerChoice>>,
     shell_width_mpc: Option<Spanned<f64>>,
     #[serde(default = "yes")]
@@ -305,13 +330,8 @@ pub fn resolve_scenario(src: &Source, files: &dyn FileResolver) -> Result<Scenar
             .collect::<Result<_>>()?,
         None => vec![Shape::Local, Shape::Equilateral, Shape::Orthogonal],
     };
-    if shapes.is_empty() {
-        return Err(Error::BadField {
-            at: flag_at(&t.shapes),
-            field: "shapes".into(),
-            message: "list at least one shape".into(),
-        });
-    }
+    let names: Vec<String> = shapes.iter().map(|s| s.name()).collect();
+    distinct(&names, &flag_at(&t.shapes), "shapes")?;
     let mut lmax: Vec<usize> = match &t.lmax {
         Some(v) => {
             let mut out = Vec::new();
@@ -330,8 +350,10 @@ pub fn resolve_scenario(src: &Source, files: &dyn FileResolver) -> Result<Scenar
         }
         None => vec![500, 1000, 1500, 2000, 2500],
     };
+    if let Some(v) = &t.lmax {
+        distinct(&lmax, &src.at(v), "lmax")?;
+    }
     lmax.sort_unstable();
-    lmax.dedup();
     let mut kmax: Vec<f64> = match &t.kmax_h_mpc {
         Some(v) => {
             for &k in v.get_ref() {
@@ -348,8 +370,10 @@ pub fn resolve_scenario(src: &Source, files: &dyn FileResolver) -> Result<Scenar
         }
         None => vec![0.05, 0.1, 0.15, 0.2],
     };
+    if let Some(v) = &t.kmax_h_mpc {
+        distinct(&kmax, &src.at(v), "kmax_h_mpc")?;
+    }
     kmax.sort_by(f64::total_cmp);
-    kmax.dedup();
     if lmax.is_empty() || kmax.is_empty() {
         return Err(Error::BadField {
             at: whole,
@@ -371,6 +395,9 @@ pub fn resolve_scenario(src: &Source, files: &dyn FileResolver) -> Result<Scenar
             .collect::<Result<Vec<_>>>()?,
         None => vec![FieldSet::T, FieldSet::E, FieldSet::TE],
     };
+    if let Some(v) = &t.fields {
+        distinct(&fields, &src.at(v), "fields")?;
+    }
     let probes = match &t.probes {
         Some(v) => v
             .get_ref()
@@ -385,6 +412,9 @@ pub fn resolve_scenario(src: &Source, files: &dyn FileResolver) -> Result<Scenar
             .collect::<Result<Vec<_>>>()?,
         None => vec![Probe::P, Probe::B, Probe::PB],
     };
+    if let Some(v) = &t.probes {
+        distinct(&probes, &src.at(v), "probes")?;
+    }
     let shell_width_mpc = match &t.shell_width_mpc {
         Some(v) => {
             let x = *v.get_ref();
@@ -438,6 +468,43 @@ pub fn resolve_scenario(src: &Source, files: &dyn FileResolver) -> Result<Scenar
         }
         None => LinearPowerChoice::default(),
     };
+    let transfer = t
+        .transfer
+        .as_ref()
+        .map_or(TransferChoice::Full, |v| *v.get_ref());
+    if !experiments.is_empty() {
+        // The rule the run applies, checked here so that `check` refuses what `run` would.
+        let at = match (&t.transfer, &f.cosmology) {
+            (Some(v), _) => src.at(v),
+            (None, Some(_)) => src.find_key("cosmology", "w0"),
+            (None, None) => whole.clone(),
+        };
+        transfer.check(&cosmology, at, "transfer")?;
+    }
+    for (i, a) in surveys.iter().enumerate() {
+        if surveys[..i].iter().any(|b| b.name == a.name) {
+            return Err(Error::BadField {
+                at: src.at(&f.survey[i].file),
+                field: "survey".into(),
+                message: format!(
+                    "survey `{}` is named twice; each [[survey]] needs its own name (set `name` in an override)",
+                    a.name
+                ),
+            });
+        }
+    }
+    for (i, a) in experiments.iter().enumerate() {
+        if experiments[..i].iter().any(|b| b.name == a.name) {
+            return Err(Error::BadField {
+                at: whole.clone(),
+                field: "cmb".into(),
+                message: format!(
+                    "experiment `{}` is named twice; each [[cmb]] needs its own name",
+                    a.name
+                ),
+            });
+        }
+    }
     if experiments.is_empty() && surveys.is_empty() {
         return Err(Error::BadField {
             at: whole,
@@ -459,7 +526,7 @@ pub fn resolve_scenario(src: &Source, files: &dyn FileResolver) -> Result<Scenar
         kmax_h_mpc: kmax,
         fields,
         probes,
-        transfer: t.transfer.unwrap_or(TransferChoice::Full),
+        transfer,
         linear_power,
         shell_width_mpc,
         damping: t.damping,
@@ -569,6 +636,37 @@ fn set_in_value(
             .or_insert_with(|| toml::Value::Table(toml::Table::new()));
         set_in_value(next, rest, value)
     }
+}
+
+/// Refuses an empty list or one that names the same entry twice (a duplicate would be
+/// computed twice or silently dropped).
+///
+/// # Errors
+/// [`Error::BadField`] at `at` naming `field` and the repeated entry.
+pub fn distinct<T: PartialEq + std::fmt::Debug>(
+    items: &[T],
+    at: &Location,
+    field: &str,
+) -> Result<()> {
+    if items.is_empty() {
+        return Err(Error::BadField {
+            at: at.clone(),
+            field: field.into(),
+            message:
+                "the list is empty; give at least one entry (or leave the key out for the default)"
+                    .into(),
+        });
+    }
+    for (i, a) in items.iter().enumerate() {
+        if items[..i].contains(a) {
+            return Err(Error::BadField {
+                at: at.clone(),
+                field: field.into(),
+                message: format!("{a:?} is listed twice; list each entry once"),
+            });
+        }
+    }
+    Ok(())
 }
 
 /// A missing referenced file is reported at the line that names it.

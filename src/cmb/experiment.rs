@@ -129,14 +129,7 @@ impl ExperimentTable {
     /// Located range errors.
     pub fn resolve(&self, src: &Source) -> Result<Experiment> {
         let f_sky = *self.f_sky.get_ref();
-        if !(f_sky > 0.0 && f_sky <= 1.0) {
-            return Err(Error::out_of_range(
-                src.at(&self.f_sky),
-                "f_sky",
-                f_sky,
-                "0 < f_sky <= 1",
-            ));
-        }
+        check_f_sky(f_sky, src.at(&self.f_sky), "f_sky")?;
         let int = |v: &Spanned<i64>, field: &str, lo: i64, hi: i64| -> Result<usize> {
             let x = *v.get_ref();
             if x < lo || x > hi {
@@ -168,23 +161,23 @@ impl ExperimentTable {
         let mut channels = Vec::new();
         for c in &self.channel {
             let nt = *c.noise_t_uk_arcmin.get_ref();
-            if !(nt.is_finite() && nt >= 0.0) {
+            if !(nt.is_finite() && (0.0..=MAX_NOISE_UK_ARCMIN).contains(&nt)) {
                 return Err(Error::out_of_range(
                     src.at(&c.noise_t_uk_arcmin),
                     "noise_t_uk_arcmin",
                     nt,
-                    "noise >= 0 microkelvin-arcmin",
+                    "0 <= noise <= 1e6 microkelvin-arcmin",
                 ));
             }
             let np = match &c.noise_p_uk_arcmin {
                 Some(v) => {
                     let x = *v.get_ref();
-                    if !(x.is_finite() && x >= 0.0) {
+                    if !(x.is_finite() && (0.0..=MAX_NOISE_UK_ARCMIN).contains(&x)) {
                         return Err(Error::out_of_range(
                             src.at(v),
                             "noise_p_uk_arcmin",
                             x,
-                            "noise >= 0 microkelvin-arcmin",
+                            "0 <= noise <= 1e6 microkelvin-arcmin",
                         ));
                     }
                     x
@@ -200,11 +193,19 @@ impl ExperimentTable {
                     "0 <= fwhm_arcmin <= 600",
                 ));
             }
+            let label = c
+                .label
+                .clone()
+                .unwrap_or_else(|| format!("channel {}", channels.len() + 1));
+            if channels.iter().any(|o: &Channel| o.label == label) {
+                return Err(Error::BadField {
+                    at: src.at(&c.fwhm_arcmin),
+                    field: "channel.label".into(),
+                    message: format!("two channels are labelled `{label}`; label each once"),
+                });
+            }
             channels.push(Channel {
-                label: c
-                    .label
-                    .clone()
-                    .unwrap_or_else(|| format!("channel {}", channels.len() + 1)),
+                label,
                 noise_t_uk_arcmin: nt,
                 noise_p_uk_arcmin: np,
                 fwhm_arcmin: fw,
@@ -221,6 +222,30 @@ impl ExperimentTable {
             lmax_e,
             channels,
         })
+    }
+}
+
+/// The largest white-noise level accepted, microkelvin-arcmin (far above any channel
+/// that carries information).
+pub const MAX_NOISE_UK_ARCMIN: f64 = 1e6;
+
+/// The smallest sky fraction accepted (0.1 deg^2).
+pub const MIN_F_SKY: f64 = 2.5e-6;
+
+/// Checks a sky fraction (`MIN_F_SKY <= f_sky <= 1`).
+///
+/// # Errors
+/// [`Error::OutOfRange`] at `at` naming `field`.
+pub fn check_f_sky(f_sky: f64, at: crate::error::Location, field: &str) -> Result<()> {
+    if (MIN_F_SKY..=1.0).contains(&f_sky) {
+        Ok(())
+    } else {
+        Err(Error::out_of_range(
+            at,
+            field,
+            f_sky,
+            "2.5e-6 <= f_sky <= 1 (0.1 deg^2 to the full sky)",
+        ))
     }
 }
 

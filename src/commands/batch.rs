@@ -43,16 +43,21 @@ pub fn run_batch(
         .filter(|p| shard.is_none_or(|s| s.owns(p.index)))
         .collect();
     let other_shards = plan.points.len() - mine.len();
+    settings
+        .progress
+        .step("batch scenarios", Some(mine.len() as u64));
     let results: Vec<Result<(String, bool)>> = mine
         .par_iter()
         .map(|p| {
             let dir = out.join(&p.folder);
             if dir.join("summary.json").is_file() {
+                settings.progress.inc(1);
                 return Ok((p.folder.clone(), false));
             }
             write_point(&dir, p)?;
             let r = run_scenario_cached(&p.scenario, settings, &cache, &mut |_| {})?;
             write_outputs(&r, &dir)?;
+            settings.progress.inc(1);
             Ok((p.folder.clone(), true))
         })
         .collect();
@@ -72,6 +77,7 @@ pub fn run_batch(
             }
         }
     }
+    settings.progress.finish();
     if let Some(e) = first_err {
         return Err(e);
     }
@@ -85,11 +91,25 @@ pub fn run_batch(
 /// # Errors
 /// I/O errors.
 pub fn merge(out: &Path, parts: &[PathBuf]) -> Result<usize> {
+    if parts.is_empty() && !out.is_dir() {
+        return Err(Error::BadField {
+            at: crate::error::Location::WholeFile(out.to_path_buf()),
+            field: "OUT".into(),
+            message: "no such folder to rebuild; give shard folders to merge into it".into(),
+        });
+    }
     std::fs::create_dir_all(out).map_err(|source| Error::Io {
         path: out.to_path_buf(),
         source,
     })?;
     for part in parts {
+        if !part.is_dir() {
+            return Err(Error::BadField {
+                at: crate::error::Location::WholeFile(part.clone()),
+                field: "SHARD_DIR".into(),
+                message: "not a folder: give the --out folders of the shard runs".into(),
+            });
+        }
         let entries = std::fs::read_dir(part).map_err(|source| Error::Io {
             path: part.clone(),
             source,

@@ -4,6 +4,7 @@ use std::path::Path;
 
 use crate::error::{Error, Location, Result};
 use crate::input::Source;
+use crate::limits::{self, Limits};
 
 /// The kind of an input file, from its top-level tables.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -44,20 +45,36 @@ pub fn kind_of(src: &Source) -> Result<FileKind> {
     })
 }
 
-/// Validates one file and describes it.
+/// Validates one file and describes it (default cost limits).
 ///
 /// # Errors
 /// The file's first input error.
 pub fn check_file(path: &Path) -> Result<String> {
+    check_file_with(path, &Limits::default()).map(|(text, _)| text)
+}
+
+/// Validates one file with every rule a run of it applies (including the cost guards of
+/// `limits`) and describes it; returns the description and warnings.
+///
+/// # Errors
+/// The file's first input error.
+pub fn check_file_with(path: &Path, limits: &Limits) -> Result<(String, Vec<String>)> {
     let src = Source::read(path)?;
     let kind = kind_of(&src)?;
     let d = path.display();
-    Ok(match kind {
+    let mut warnings = Vec::new();
+    let text = match kind {
         FileKind::Cosmology => {
             let c = crate::cosmology::load_cosmology_file(path)?;
             let p = c.params();
+            let full = crate::scenario::TransferChoice::Full
+                .check(&c, src.find_key("cosmology", "w0"), "w0")
+                .err()
+                .map_or(String::new(), |_| {
+                    "; w0 != -1 or wa != 0: CMB forecasts need the shell transfer (--transfer shell), the full Boltzmann transfer models a cosmological constant only".to_string()
+                });
             format!(
-                "{d}: cosmology, valid: omega_b = {}, omega_c = {}, h = {}, n_s = {}, A_s = {:.4e}, Omega_m = {:.4}",
+                "{d}: cosmology, valid: omega_b = {}, omega_c = {}, h = {}, n_s = {}, A_s = {:.4e}, Omega_m = {:.4}{full}",
                 p.omega_b,
                 p.omega_c,
                 p.h,
@@ -79,7 +96,19 @@ pub fn check_file(path: &Path) -> Result<String> {
             )
         }
         FileKind::Survey => {
-            let (s, _, _) = super::survey::load_survey(path, None)?;
+            let (s, c, _) = super::survey::load_survey(path, None)?;
+            let g = crate::cosmology::Growth::new(&c);
+            let at = src.find_key("survey", "kmax_h_mpc");
+            warnings.extend(limits::check_kmax_modes(
+                &s,
+                &[s.kmax_default_mpc],
+                &g,
+                c.h(),
+                &at,
+                "kmax_h_mpc",
+            )?);
+            let dk = crate::survey::fisher::SurveySettings::default().dk_over_kf;
+            limits::check_survey_cost(&s, s.kmax_default_mpc, &g, dk, at, limits)?;
             format!(
                 "{d}: survey `{}`, valid: f_sky = {:.4}, {} redshift bin(s) from z = {} to {}, {} tracer(s); `ngreach survey {d}` forecasts P, B, P+B",
                 s.name,
@@ -92,6 +121,7 @@ pub fn check_file(path: &Path) -> Result<String> {
         }
         FileKind::Scenario => {
             let s = crate::scenario::load_scenario(path)?;
+            warnings.extend(limits::check_scenario(&s, limits)?);
             format!(
                 "{d}: scenario `{}`, valid: {} experiment(s), {} survey(s), shapes {}, l_max {:?}, k_max {:?} h/Mpc, transfer {:?}, linear power {}; `ngreach run {d}` computes it",
                 s.name,
@@ -109,12 +139,18 @@ pub fn check_file(path: &Path) -> Result<String> {
             )
         }
         FileKind::Plan => {
-            let p = crate::batch::load_plan(path)?;
+            let p = crate::batch::load_plan_with(path, limits)?;
+            for pt in &p.points {
+                for w in limits::check_scenario(&pt.scenario, limits)? {
+                    warnings.push(format!("grid point {}: {w}", pt.index));
+                }
+            }
             format!(
                 "{d}: batch plan `{}`, valid: {} scenario(s); `ngreach batch {d}` runs them",
                 p.name,
                 p.points.len()
             )
         }
-    })
+    };
+    Ok((text, warnings))
 }

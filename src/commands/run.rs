@@ -1,58 +1,12 @@
 //! `ngreach run`: the main job on a scenario (the embedded demo when none is given):
 //! both engines, the combiner, and every output file.
 
-use std::io::{IsTerminal, Write};
 use std::path::Path;
-use std::time::Instant;
 
 use crate::error::Result;
 use crate::pipeline::{RunResult, RunSettings, run_scenario};
 use crate::report::outputs::{terminal_summary, write_outputs};
 use crate::scenario::{Scenario, demo_scenario, load_scenario};
-
-/// Progress on stderr: one self-overwriting line with the stage and the elapsed time,
-/// shown only when stderr is a terminal and `--quiet` is not set. The stage counter is
-/// the number of stages started so far.
-pub struct Progress {
-    enabled: bool,
-    start: Instant,
-    stage: usize,
-}
-
-impl Progress {
-    /// Progress for an interactive run unless `quiet`.
-    pub fn new(quiet: bool) -> Self {
-        Self {
-            enabled: !quiet && std::io::stderr().is_terminal(),
-            start: Instant::now(),
-            stage: 0,
-        }
-    }
-
-    /// Announces a stage.
-    pub fn stage(&mut self, name: &str) {
-        self.stage += 1;
-        if self.enabled {
-            let mut e = std::io::stderr().lock();
-            let _ = write!(
-                e,
-                "\r\x1b[K[{:>6.1} s] stage {}: {name}",
-                self.start.elapsed().as_secs_f64(),
-                self.stage
-            );
-            let _ = e.flush();
-        }
-    }
-
-    /// Clears the line.
-    pub fn finish(&mut self) {
-        if self.enabled {
-            let mut e = std::io::stderr().lock();
-            let _ = write!(e, "\r\x1b[K");
-            let _ = e.flush();
-        }
-    }
-}
 
 /// Loads the scenario (or the demo).
 ///
@@ -65,7 +19,8 @@ pub fn scenario_for(path: Option<&Path>) -> Result<Scenario> {
     }
 }
 
-/// Runs a scenario, writes its outputs into `out`, returns the terminal summary.
+/// Runs a scenario, writes its outputs into `out`, returns the terminal summary. Stages
+/// are announced to `settings.progress`.
 ///
 /// # Errors
 /// Any stage's failure; I/O errors writing the outputs.
@@ -73,11 +28,10 @@ pub fn run_to_dir(
     sc: &Scenario,
     out: &Path,
     settings: &RunSettings,
-    quiet: bool,
 ) -> Result<(String, RunResult)> {
-    let mut progress = Progress::new(quiet);
-    let result = run_scenario(sc, settings, &mut |s| progress.stage(s))?;
-    progress.stage("writing tables and figures");
+    let progress = settings.progress.clone();
+    let result = run_scenario(sc, settings, &mut |s| progress.step(s, None))?;
+    progress.step("writing tables and figures", None);
     let files = write_outputs(&result, out)?;
     progress.finish();
     let mut text = terminal_summary(&result);

@@ -262,7 +262,20 @@ impl Survey {
         if !(z.is_finite() && (0.0..=10.0).contains(&z)) {
             return Err(Error::out_of_range(flag("--z"), "z", z, "0 <= z <= 10"));
         }
-        positive(nbar_h3, flag("--nbar"), "nbar", "nbar > 0 h^3 Mpc^-3")?;
+        positive(
+            nbar_h3,
+            flag("--nbar"),
+            "nbar",
+            "0 < nbar <= 1000 h^3 Mpc^-3",
+        )?;
+        if nbar_h3 > MAX_NBAR_H3_MPC3 {
+            return Err(Error::out_of_range(
+                flag("--nbar"),
+                "nbar",
+                nbar_h3,
+                "0 < nbar <= 1000 h^3 Mpc^-3",
+            ));
+        }
         if !(b1.is_finite() && b1 > 0.0 && b1 < 20.0) {
             return Err(Error::out_of_range(flag("--b1"), "b1", b1, "0 < b1 < 20"));
         }
@@ -324,6 +337,16 @@ pub fn k_nonlinear(power: &LinearPower, z: f64, sigma_nl: f64) -> f64 {
     (0.5 * (lo + hi)).exp()
 }
 
+/// The smallest survey area accepted, deg^2 (below it no Fourier mode of interest fits).
+pub const MIN_AREA_DEG2: f64 = 0.1;
+
+/// The largest |b2| and |b_s2| accepted (observed tracers have |b2| of a few).
+pub const MAX_ABS_HIGHER_BIAS: f64 = 50.0;
+
+/// The largest number density accepted, h^3 Mpc^-3 (far above any tracer; large values
+/// stand for the noise-free limit).
+pub const MAX_NBAR_H3_MPC3: f64 = 1e3;
+
 fn positive(v: f64, at: Location, field: &str, allowed: &str) -> Result<()> {
     if v.is_finite() && v > 0.0 {
         Ok(())
@@ -348,20 +371,25 @@ impl SurveyTable {
             }
             (Some(a), None) => {
                 let v = *a.get_ref();
-                if !(v > 0.0 && v <= FULL_SKY_DEG2 * (1.0 + 1e-9)) {
+                if !(MIN_AREA_DEG2..=FULL_SKY_DEG2 * (1.0 + 1e-9)).contains(&v) {
                     return Err(Error::out_of_range(
                         src.at(a),
                         "area_deg2",
                         v,
-                        "0 < area_deg2 <= 41253",
+                        "0.1 <= area_deg2 <= 41253",
                     ));
                 }
                 v / FULL_SKY_DEG2
             }
             (None, Some(f)) => {
                 let v = *f.get_ref();
-                if !(v > 0.0 && v <= 1.0) {
-                    return Err(Error::out_of_range(src.at(f), "f_sky", v, "0 < f_sky <= 1"));
+                if !(MIN_AREA_DEG2 / FULL_SKY_DEG2..=1.0).contains(&v) {
+                    return Err(Error::out_of_range(
+                        src.at(f),
+                        "f_sky",
+                        v,
+                        "2.5e-6 <= f_sky <= 1 (0.1 deg^2 to the full sky)",
+                    ));
                 }
                 v
             }
@@ -424,9 +452,39 @@ impl SurveyTable {
                 ),
             });
         }
-        let mut tracers = Vec::new();
+        let mut tracers: Vec<Tracer> = Vec::new();
         for (ti, t) in self.tracer.iter().enumerate() {
-            tracers.push(resolve_tracer(t, ti, src, &bins, growth, h, f_sky)?);
+            let tr = resolve_tracer(t, ti, src, &bins, growth, h, f_sky)?;
+            if tracers.iter().any(|o| o.name == tr.name) {
+                return Err(Error::BadField {
+                    at: src.find_key("survey.tracer", "name"),
+                    field: "tracer.name".into(),
+                    message: format!(
+                        "two tracers are named `{}`; give each its own name",
+                        tr.name
+                    ),
+                });
+            }
+            tracers.push(tr);
+        }
+        let p = &self.priors;
+        for (field, v) in [
+            ("b1", p.b1),
+            ("b2", p.b2),
+            ("bs2", p.bs2),
+            ("p_shot", p.p_shot),
+            ("b_shot", p.b_shot),
+        ] {
+            if let Some(x) = v {
+                if !(x.is_finite() && x > 0.0) {
+                    return Err(Error::out_of_range(
+                        src.find_key("survey.priors", field),
+                        &format!("priors.{field}"),
+                        x,
+                        "a prior width (standard deviation) > 0 and finite",
+                    ));
+                }
+            }
         }
         let opt = |v: &Option<Spanned<f64>>,
                    d: f64,
@@ -484,6 +542,18 @@ impl SurveyTable {
             5.0,
             "1e-3 <= kmax_h_mpc <= 5",
         )? * h;
+        if let (Some(lo), Some(s)) = (kmin, &self.kmin_h_mpc) {
+            if lo >= kmax {
+                return Err(Error::Conflict {
+                    at: src.at(s),
+                    message: format!(
+                        "kmin_h_mpc = {} is not below kmax_h_mpc = {}: no Fourier modes would remain",
+                        lo / h,
+                        kmax / h
+                    ),
+                });
+            }
+        }
         let sigma_nl = opt(
             &self.sigma_nl,
             0.5,
@@ -591,12 +661,12 @@ fn resolve_tracer(
         .or(t.surface_density_deg2.as_ref())
         .map_or_else(whole, |s| src.at(s));
     for &x in &nbar_mpc3 {
-        if !(x.is_finite() && x > 0.0) {
+        if !(x.is_finite() && x > 0.0 && x / h.powi(3) <= MAX_NBAR_H3_MPC3) {
             return Err(Error::out_of_range(
                 at_n.clone(),
                 "nbar_h3_mpc3",
                 x / h.powi(3),
-                "nbar > 0",
+                "0 < nbar <= 1000 h^3 Mpc^-3",
             ));
         }
     }
@@ -638,6 +708,14 @@ fn resolve_tracer(
         Some(v) => per_bin(v, n, "bs2", src)?,
         None => b1.iter().map(|&b| bias::bs2_local_lagrangian(b)).collect(),
     };
+    for (field, vals, spanned) in [("b2", &b2, &t.b2), ("bs2", &bs2, &t.bs2)] {
+        for &x in vals.iter() {
+            if !(x.is_finite() && x.abs() <= MAX_ABS_HIGHER_BIAS) {
+                let at = spanned.as_ref().map_or_else(whole, |s| src.at(s));
+                return Err(Error::out_of_range(at, field, x, "|b| <= 50"));
+            }
+        }
+    }
     let p = match &t.p {
         Some(s) => {
             let v = *s.get_ref();
