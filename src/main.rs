@@ -86,6 +86,7 @@ fn run(cli: Cli) -> ngreach::Result<String> {
             let (c, src) = commands::resolve_cosmology(a.common.cosmology.as_deref())?;
             let z =
                 a.z.unwrap_or_else(|| commands::background::DEFAULT_Z.to_vec());
+            lim.list(Location::Flag("--z".into()), "z", z.len())?;
             Ok(commands::background::background_report(&c, &src, &z)?.render(a.common.format))
         }
         Command::Survey(a) => {
@@ -348,6 +349,9 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                 ..Default::default()
             };
             let (text, result) = commands::run::run_to_dir(&sc, &a.out, &settings)?;
+            if !warnings.is_empty() {
+                add_warnings_to_summary(&a.out.join("summary.json"), &warnings)?;
+            }
             Ok(match a.format {
                 ngreach::report::Format::Json => {
                     let mut j = ngreach::report::outputs::summary_json(&result);
@@ -371,6 +375,26 @@ fn cache_options(a: &ngreach::cli::CacheArgs) -> ngreach::cmb::boltzmann::CacheO
         (Some(d), false) => CacheOptions::in_dir(d),
         (None, false) => CacheOptions::default(),
     }
+}
+
+/// Adds `warnings` to the summary.json a run wrote.
+fn add_warnings_to_summary(path: &std::path::Path, warnings: &[String]) -> ngreach::Result<()> {
+    let io = |source| Error::Io {
+        path: path.to_path_buf(),
+        source,
+    };
+    let text = std::fs::read_to_string(path).map_err(io)?;
+    let mut j: serde_json::Value = serde_json::from_str(&text).map_err(|e| Error::Syntax {
+        at: Location::WholeFile(path.to_path_buf()),
+        message: e.to_string(),
+    })?;
+    if let serde_json::Value::Object(m) = &mut j {
+        m.insert("warnings".into(), warnings.to_vec().into());
+    }
+    ngreach::report::write_atomic(
+        path,
+        (serde_json::to_string_pretty(&j).unwrap_or_default() + "\n").as_bytes(),
+    )
 }
 
 /// Adds the warnings to a report's JSON (`warnings`, always present) and notes.

@@ -898,6 +898,17 @@ fn corpus() -> Vec<Case> {
     ] {
         v.push(case("flag", label, &[], &args, expect));
     }
+    let zs: Vec<String> = (0..5000).map(|i| format!("{}", i as f64 * 1e-3)).collect();
+    let zs = zs.join(",");
+    v.push(Case {
+        kind: "flag",
+        label: "background --z with 5000 values".into(),
+        files: Vec::new(),
+        args: vec!["background".into(), "--z".into(), zs],
+        env: Vec::new(),
+        expect: "allow-large".into(),
+        warning: false,
+    });
     // --- environment variables.
     for val in ["abc", "-1", "0", "nan", "inf", ""] {
         let mut c = case(
@@ -920,6 +931,23 @@ fn corpus() -> Vec<Case> {
         )],
         &["survey", "s.toml", "--kmax", "0.02", "--format", "json"],
         "redshift bins",
+    );
+    w.warning = true;
+    v.push(w);
+    // Half of the shards merged: grid points 0 and 2 of a round-robin split are present.
+    let point = |i: usize| format!("{{\"index\": {i}, \"folder\": \"s{i:04}\", \"values\": {{}}}}");
+    let summary = "{\"rows\": [], \"crossover\": []}".to_string();
+    let mut w = case(
+        "warning",
+        "merge of half the shards",
+        &[
+            ("shard0/s0000/point.json", point(0)),
+            ("shard0/s0000/summary.json", summary.clone()),
+            ("shard0/s0002/point.json", point(2)),
+            ("shard0/s0002/summary.json", summary),
+        ],
+        &["merge", "merged", "shard0"],
+        "missing",
     );
     w.warning = true;
     v.push(w);
@@ -958,7 +986,9 @@ fn hostile_corpus_is_refused_cleanly() {
             }
         }
         for (name, text) in &c.files {
-            std::fs::write(cdir.join(name), text).unwrap();
+            let path = cdir.join(name);
+            std::fs::create_dir_all(path.parent().unwrap()).unwrap();
+            std::fs::write(path, text).unwrap();
         }
         let env: Vec<(&str, &str)> = c.env.iter().map(|(k, v)| (*k, v.as_str())).collect();
         let o = run_bounded(&cdir, &c.args, &env);

@@ -144,7 +144,7 @@ fn scratch(name: &str) -> PathBuf {
 fn mutated_inputs_never_panic_or_hang() {
     let dir = scratch("mutants");
     let files = shipped();
-    let mut rng = Rng(0x5EED_0F_4E_6EAC);
+    let mut rng = Rng(0x5EED_0F4E_6EAC);
     let budget = Duration::from_secs(4);
     let t0 = Instant::now();
     let (mut n, mut refused) = (0, 0);
