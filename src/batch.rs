@@ -146,6 +146,18 @@ pub fn load_plan_with(path: &Path, limits: &crate::limits::Limits) -> Result<Pla
             });
         }
         limits.list(src.at(&v.values), "values", v.values.get_ref().len())?;
+        let vals = v.values.get_ref();
+        if let Some(d) = (0..vals.len()).find(|&i| vals[..i].contains(&vals[i])) {
+            return Err(Error::BadField {
+                at: src.at(&v.values),
+                field: "values".into(),
+                message: format!(
+                    "{} is listed twice for `{}`; list each value once",
+                    vals[d],
+                    v.path.get_ref()
+                ),
+            });
+        }
     }
     let points_estimate = pf
         .plan

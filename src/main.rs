@@ -2,7 +2,6 @@
 
 use std::io::{IsTerminal, Write};
 use std::process::ExitCode;
-use std::sync::Arc;
 use std::time::Duration;
 
 use clap::Parser;
@@ -26,9 +25,9 @@ fn progress_for(quiet: bool) -> Progress {
     if quiet {
         Progress::silent()
     } else if std::io::stderr().is_terminal() {
-        Progress::new(Arc::new(TerminalBar::new()))
+        Progress::leak(Box::new(TerminalBar::new()))
     } else {
-        Progress::new(Arc::new(LogLines::new(
+        Progress::leak(Box::new(LogLines::new(
             Box::new(std::io::stderr()),
             LOG_INTERVAL,
         )))
@@ -87,6 +86,7 @@ fn run(cli: Cli) -> ngreach::Result<String> {
             let z =
                 a.z.unwrap_or_else(|| commands::background::DEFAULT_Z.to_vec());
             lim.list(Location::Flag("--z".into()), "z", z.len())?;
+            distinct_flag(&z, "--z")?;
             Ok(commands::background::background_report(&c, &src, &z)?.render(a.common.format))
         }
         Command::Survey(a) => {
@@ -162,6 +162,7 @@ fn run(cli: Cli) -> ngreach::Result<String> {
             let top = kmax_mpc.iter().copied().fold(0.0, f64::max);
             let settings = ngreach::survey::fisher::SurveySettings {
                 parallel: a.threads != Some(1),
+                progress,
                 ..Default::default()
             };
             let cost_at = Location::Flag(if a.volume.is_some() {
@@ -181,12 +182,8 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                 settings,
             };
             progress.step(
-                &format!(
-                    "survey Fisher: {} ({} bins)",
-                    survey.name,
-                    survey.bins.len()
-                ),
-                None,
+                &format!("survey Fisher: {} (redshift bins)", survey.name),
+                Some(survey.bins.len() as u64),
             );
             let res = commands::survey::survey_report(&survey, &c, &src, &opts);
             progress.finish();
@@ -296,7 +293,7 @@ fn run(cli: Cli) -> ngreach::Result<String> {
             let settings = ngreach::pipeline::RunSettings {
                 parallel: a.threads != Some(1),
                 cache: cache_options(&a.cache),
-                progress: progress.clone(),
+                progress,
                 ..Default::default()
             };
             let r = commands::batch::run_batch(&plan, &a.out, shard, &settings)?;
@@ -345,7 +342,7 @@ fn run(cli: Cli) -> ngreach::Result<String> {
             let settings = ngreach::pipeline::RunSettings {
                 parallel: a.threads != Some(1),
                 cache: cache_options(&a.cache),
-                progress: progress.clone(),
+                progress,
                 ..Default::default()
             };
             let (text, result) = commands::run::run_to_dir(&sc, &a.out, &settings)?;

@@ -262,8 +262,10 @@ fn build_cmb_pieces(
     let parallel = settings.parallel;
     let lmax = *sc.lmax.last().unwrap_or(&2000);
     progress("CMB transfer functions");
+    settings.progress.step("CMB transfer functions", None);
     let (table, radial, meta) = cmb_transfer(sc, bg, lmax, &settings.cache)?;
     progress("CMB radial functions");
+    settings.progress.step("CMB radial functions", None);
     let inp = CmbFisherInput {
         transfer: &table,
         primordial: Primordial::new(c),
@@ -316,6 +318,9 @@ pub fn run_scenario_cached(
         transfer_meta = pieces.meta.clone();
         for e in &sc.experiments {
             progress(&format!("CMB bispectrum Fisher: {}", e.name));
+            settings
+                .progress
+                .step(&format!("CMB bispectrum Fisher sums: {}", e.name), None);
             let p = pieces
                 .plan
                 .with_experiment(&pieces.table, &prim, e, c.params().t_cmb_k);
@@ -330,6 +335,7 @@ pub fn run_scenario_cached(
     let mut linear_power = Value::Null;
     if !sc.surveys.is_empty() {
         progress("linear power");
+        settings.progress.step("linear power", None);
         let lp = cache.linear_power(sc, settings.parallel)?;
         let (power, meta) = (&lp.0, &lp.1);
         linear_power = meta.clone();
@@ -341,10 +347,15 @@ pub fn run_scenario_cached(
         let kmax_mpc: Vec<f64> = sc.kmax_h_mpc.iter().map(|k| k * c.h()).collect();
         let st = SurveySettings {
             parallel: settings.parallel,
+            progress: settings.progress,
             ..settings.survey
         };
         for s in &sc.surveys {
             progress(&format!("survey Fisher: {}", s.name));
+            settings.progress.step(
+                &format!("survey Fisher: {} (redshift bins)", s.name),
+                Some(s.bins.len() as u64),
+            );
             let forecast = survey_fisher(s, power, &bg, &shapes, &kmax_mpc, &st);
             surveys.push(SurveyResult {
                 survey: s.clone(),
@@ -352,6 +363,7 @@ pub fn run_scenario_cached(
             });
         }
     }
+    settings.progress.finish();
     Ok(RunResult {
         scenario: sc.clone(),
         cmb,

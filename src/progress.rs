@@ -20,10 +20,12 @@ pub trait ProgressSink: Send + Sync {
     fn finish(&self);
 }
 
-/// A cheap, clonable progress handle (possibly silent).
-#[derive(Clone, Default)]
+/// A cheap, copyable progress handle (possibly silent). It refers to a sink that lives
+/// for the whole process ([`Progress::leak`] is called once per command by the binary),
+/// so that engine settings that are `Copy` can carry it.
+#[derive(Clone, Copy, Default)]
 pub struct Progress {
-    sink: Option<Arc<dyn ProgressSink>>,
+    sink: Option<&'static dyn ProgressSink>,
 }
 
 impl std::fmt::Debug for Progress {
@@ -36,34 +38,45 @@ impl std::fmt::Debug for Progress {
     }
 }
 
+/// Progress never changes a result, so settings that differ only in their progress
+/// handle compare equal.
+impl PartialEq for Progress {
+    fn eq(&self, _: &Self) -> bool {
+        true
+    }
+}
+
 impl Progress {
     /// A handle that reports nothing.
     pub fn silent() -> Self {
         Self::default()
     }
 
-    /// A handle that reports to `sink`.
-    pub fn new(sink: Arc<dyn ProgressSink>) -> Self {
-        Self { sink: Some(sink) }
+    /// A handle that reports to `sink`, which lives for the rest of the process (the
+    /// binary makes one per command).
+    pub fn leak(sink: Box<dyn ProgressSink>) -> Self {
+        Self {
+            sink: Some(Box::leak(sink)),
+        }
     }
 
-    /// Announces a step (finishing the previous one).
+    /// Announces a step (finishing the previous one); `total` units when known.
     pub fn step(&self, name: &str, total: Option<u64>) {
-        if let Some(s) = &self.sink {
+        if let Some(s) = self.sink {
             s.start(name, total);
         }
     }
 
     /// `n` units of the current step are done.
     pub fn inc(&self, n: u64) {
-        if let Some(s) = &self.sink {
+        if let Some(s) = self.sink {
             s.inc(n);
         }
     }
 
     /// The current step is done.
     pub fn finish(&self) {
-        if let Some(s) = &self.sink {
+        if let Some(s) = self.sink {
             s.finish();
         }
     }
@@ -304,7 +317,7 @@ mod tests {
     #[test]
     fn log_lines_are_timestamped_and_rate_limited() {
         let buf = Buf::default();
-        let p = Progress::new(Arc::new(LogLines::new(
+        let p = Progress::leak(Box::new(LogLines::new(
             Box::new(buf.clone()),
             Duration::from_secs(3600),
         )));

@@ -909,6 +909,20 @@ fn corpus() -> Vec<Case> {
         expect: "allow-large".into(),
         warning: false,
     });
+    v.push(case(
+        "flag",
+        "background --z 1,1",
+        &[],
+        &["background", "--z", "1,1"],
+        "twice",
+    ));
+    v.push(case(
+        "plan",
+        "value listed twice",
+        &[("p.toml", "[plan]\nscenario = \"demo\"\n[[plan.vary]]\npath = \"survey.0.area_deg2\"\nvalues = [1000.0, 1000.0]\n".into())],
+        &["check", "p.toml"],
+        "twice",
+    ));
     // --- environment variables.
     for val in ["abc", "-1", "0", "nan", "inf", ""] {
         let mut c = case(

@@ -37,6 +37,11 @@ pub fn run_batch(
         source,
     })?;
     let cache = CmbCache::default();
+    // The steps inside each scenario stay silent; the bar counts scenarios.
+    let inner = RunSettings {
+        progress: crate::progress::Progress::silent(),
+        ..settings.clone()
+    };
     let mine: Vec<_> = plan
         .points
         .iter()
@@ -55,7 +60,7 @@ pub fn run_batch(
                 return Ok((p.folder.clone(), false));
             }
             write_point(&dir, p)?;
-            let r = run_scenario_cached(&p.scenario, settings, &cache, &mut |_| {})?;
+            let r = run_scenario_cached(&p.scenario, &inner, &cache, &mut |_| {})?;
             write_outputs(&r, &dir)?;
             settings.progress.inc(1);
             Ok((p.folder.clone(), true))

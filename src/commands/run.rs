@@ -29,8 +29,8 @@ pub fn run_to_dir(
     out: &Path,
     settings: &RunSettings,
 ) -> Result<(String, RunResult)> {
-    let progress = settings.progress.clone();
-    let result = run_scenario(sc, settings, &mut |s| progress.step(s, None))?;
+    let progress = settings.progress;
+    let result = run_scenario(sc, settings, &mut |_| {})?;
     progress.step("writing tables and figures", None);
     let files = write_outputs(&result, out)?;
     progress.finish();

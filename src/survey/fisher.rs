@@ -127,6 +127,9 @@ pub struct SurveySettings {
     pub orient_phi: usize,
     /// Run the outer loops in parallel.
     pub parallel: bool,
+    /// Progress: one unit per finished redshift bin.
+    #[serde(skip)]
+    pub progress: crate::progress::Progress,
 }
 
 impl Default for SurveySettings {
@@ -139,6 +142,7 @@ impl Default for SurveySettings {
             orient_mu: 6,
             orient_phi: 8,
             parallel: true,
+            progress: crate::progress::Progress::silent(),
         }
     }
 }
@@ -245,9 +249,13 @@ pub fn survey_fisher(
         (0..survey.bins.len())
             .into_par_iter()
             .map(run_bin)
+            .inspect(|_| settings.progress.inc(1))
             .collect()
     } else {
-        (0..survey.bins.len()).map(run_bin).collect()
+        (0..survey.bins.len())
+            .map(run_bin)
+            .inspect(|_| settings.progress.inc(1))
+            .collect()
     };
     let fnl_owned: Vec<String> = shape_names.iter().map(|s| format!("fnl_{s}")).collect();
     let fnl_names: Vec<&str> = fnl_owned.iter().map(|s| s.as_str()).collect();
