@@ -7,10 +7,9 @@
 //! batch plan, entries of a list. The limits are set so that a request inside them runs
 //! in about a minute or less on a two-core machine.
 
-use crate::cosmology::Growth;
+use crate::cosmology::LinearPower;
 use crate::error::{Error, Location, Result};
 use crate::survey::Survey;
-use crate::survey::spec::KmaxRule;
 
 /// Survey bispectrum triangles (summed over redshift bins) allowed without
 /// `--allow-large`: measured about 3e5 triangles per second on two cores (one tracer,
@@ -88,16 +87,13 @@ fn sig(x: f64) -> String {
 }
 
 /// The k_max of each redshift bin (1/Mpc) that the engine will use for a requested k_max
-/// (1/Mpc), or an upper bound of it for the `sigma` rule (whose k_nonlinear needs the
-/// power spectrum).
-pub fn bin_kmax_upper_mpc(survey: &Survey, requested_mpc: f64, growth: &Growth) -> Vec<f64> {
+/// (1/Mpc), by the survey's k_max rule with the linear power `power` (callers pass the
+/// Eisenstein-Hu power, whose k_nonlinear is within a few percent of any other model's).
+pub fn bin_kmax_mpc(survey: &Survey, requested_mpc: f64, power: &LinearPower) -> Vec<f64> {
     survey
         .bins
         .iter()
-        .map(|b| match survey.kmax_rule {
-            KmaxRule::Fixed | KmaxRule::Sigma => requested_mpc,
-            KmaxRule::Growth => requested_mpc / growth.d_norm0(b.z_eff),
-        })
+        .map(|b| survey.kmax_for_bin(requested_mpc, b, power))
         .collect()
 }
 
@@ -123,10 +119,10 @@ pub fn bin_kmin_mpc(survey: &Survey) -> Vec<f64> {
 pub fn survey_triangles(
     survey: &Survey,
     kmax_top_mpc: f64,
-    growth: &Growth,
+    power: &LinearPower,
     dk_over_kf: f64,
 ) -> f64 {
-    let kmax = bin_kmax_upper_mpc(survey, kmax_top_mpc, growth);
+    let kmax = bin_kmax_mpc(survey, kmax_top_mpc, power);
     let kmin = bin_kmin_mpc(survey);
     survey
         .bins
@@ -161,12 +157,12 @@ pub fn survey_triangles(
 pub fn check_survey_cost(
     survey: &Survey,
     kmax_top_mpc: f64,
-    growth: &Growth,
+    power: &LinearPower,
     dk_over_kf: f64,
     at: Location,
     limits: &Limits,
 ) -> Result<()> {
-    let n = survey_triangles(survey, kmax_top_mpc, growth, dk_over_kf);
+    let n = survey_triangles(survey, kmax_top_mpc, power, dk_over_kf);
     limits.guard(
         at,
         &format!(
@@ -195,7 +191,7 @@ fn sig3(x: f64) -> String {
 pub fn check_kmax_modes(
     survey: &Survey,
     kmax_grid_mpc: &[f64],
-    growth: &Growth,
+    power: &LinearPower,
     h: f64,
     at: &Location,
     field: &str,
@@ -203,7 +199,7 @@ pub fn check_kmax_modes(
     let kmin = bin_kmin_mpc(survey);
     let mut warnings = Vec::new();
     for &k in kmax_grid_mpc {
-        let hi = bin_kmax_upper_mpc(survey, k, growth);
+        let hi = bin_kmax_mpc(survey, k, power);
         let empty: Vec<usize> = (0..kmin.len()).filter(|&i| hi[i] <= kmin[i]).collect();
         if empty.len() == kmin.len() {
             let lo = kmin.iter().copied().fold(f64::INFINITY, f64::min);
@@ -211,11 +207,12 @@ pub fn check_kmax_modes(
                 at: at.clone(),
                 field: field.into(),
                 message: format!(
-                    "k_max = {} h/Mpc leaves no Fourier modes in any redshift bin of survey `{}`: \
-                     k_max must exceed k_min = {} h/Mpc (kmin_h_mpc, else the fundamental mode \
-                     2 pi / V^(1/3) of the bin)",
+                    "k_max = {} h/Mpc leaves no Fourier modes in any redshift bin of survey `{}`{}: \
+                     the k_max of each bin must exceed k_min = {} h/Mpc (kmin_h_mpc, else the \
+                     fundamental mode 2 pi / V^(1/3) of the bin)",
                     sig3(k / h),
                     survey.name,
+                    rule_note(survey),
                     sig3(lo / h)
                 ),
             });
@@ -246,24 +243,54 @@ pub fn check_scenario(sc: &crate::scenario::Scenario, limits: &Limits) -> Result
     limits.list(at.clone(), "lmax", sc.lmax.len())?;
     limits.list(at.clone(), "kmax_h_mpc", sc.kmax_h_mpc.len())?;
     let c = &sc.cosmology;
-    let growth = Growth::new(c);
+    let power = LinearPower::eisenstein_hu(c);
     let h = c.h();
     let kmax_mpc: Vec<f64> = sc.kmax_h_mpc.iter().map(|k| k * h).collect();
     let top = kmax_mpc.iter().copied().fold(0.0, f64::max);
     let dk = crate::survey::fisher::SurveySettings::default().dk_over_kf;
     let mut warnings = Vec::new();
+    for e in &sc.experiments {
+        let below: Vec<usize> = sc.lmax.iter().copied().filter(|&l| l <= e.l_min).collect();
+        if below.len() == sc.lmax.len() {
+            return Err(Error::BadField {
+                at: at.clone(),
+                field: "lmax".into(),
+                message: format!(
+                    "every l_max {:?} is at or below l_min = {} of experiment `{}`: it would add no multipoles",
+                    sc.lmax, e.l_min, e.name
+                ),
+            });
+        }
+        if !below.is_empty() {
+            warnings.push(format!(
+                "experiment `{}`: l_max {below:?} at or below its l_min = {} (no multipoles there: those rows are empty)",
+                e.name, e.l_min
+            ));
+        }
+    }
     for s in &sc.surveys {
         warnings.extend(check_kmax_modes(
             s,
             &kmax_mpc,
-            &growth,
+            &power,
             h,
             &at,
             "kmax_h_mpc",
         )?);
-        check_survey_cost(s, top, &growth, dk, at.clone(), limits)?;
+        check_survey_cost(s, top, &power, dk, at.clone(), limits)?;
     }
     Ok(warnings)
+}
+
+fn rule_note(survey: &Survey) -> String {
+    match survey.kmax_rule {
+        crate::survey::spec::KmaxRule::Fixed => String::new(),
+        crate::survey::spec::KmaxRule::Growth => " (after its `growth` k_max rule)".into(),
+        crate::survey::spec::KmaxRule::Sigma => format!(
+            " (after its `sigma` k_max rule with sigma_nl = {}: raise sigma_nl)",
+            survey.sigma_nl
+        ),
+    }
 }
 
 /// The number of worker threads to use for `--threads N`: at least 1, at most
@@ -303,7 +330,7 @@ mod tests {
         // Brute force: the engine's loop bounds, counted.
         let c = Cosmology::planck2018();
         let s = Survey::quick(0.05, 1.0, 1e-3, 2.0, false, c.h()).unwrap();
-        let g = Growth::new(&c);
+        let g = LinearPower::eisenstein_hu(&c);
         let _ = Background::new(&c);
         let kmax = 0.3 * c.h();
         let est = survey_triangles(&s, kmax, &g, 1.0);

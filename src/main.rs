@@ -156,7 +156,7 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                     ));
                 }
             }
-            let growth = ngreach::cosmology::Growth::new(&c);
+            let growth = ngreach::cosmology::LinearPower::eisenstein_hu(&c);
             let kmax_mpc: Vec<f64> = kmax_list.iter().map(|k| k * h).collect();
             let warnings = limits::check_kmax_modes(&survey, &kmax_mpc, &growth, h, &kat, "kmax")?;
             let top = kmax_mpc.iter().copied().fold(0.0, f64::max);

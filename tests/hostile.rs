@@ -923,6 +923,34 @@ fn corpus() -> Vec<Case> {
         &["check", "p.toml"],
         "twice",
     ));
+    v.push(case(
+        "survey",
+        "sigma rule leaves no modes",
+        &[(
+            "s.toml",
+            SURVEY
+                .replace(
+                    "area_deg2 = 1000.0\nz_edges = [0.5, 1.0]",
+                    "area_deg2 = 100.0\nz_edges = [0.1, 0.2]",
+                )
+                .replace("z_edges", "kmax_rule = \"sigma\"\nsigma_nl = 0.05\nz_edges"),
+        )],
+        &["survey", "s.toml"],
+        "no Fourier modes",
+    ));
+    v.push(case(
+        "scenario",
+        "every l_max below the experiment's l_min",
+        &[(
+            "sc.toml",
+            scenario(
+                "lmax = [20, 25]\ntransfer = \"shell\"",
+                "[[cmb]]\nfile = \"cmb_ground.toml\"\n",
+            ),
+        )],
+        &["check", "sc.toml"],
+        "l_min",
+    ));
     // --- environment variables.
     for val in ["abc", "-1", "0", "nan", "inf", ""] {
         let mut c = case(

@@ -97,7 +97,7 @@ pub fn check_file_with(path: &Path, limits: &Limits) -> Result<(String, Vec<Stri
         }
         FileKind::Survey => {
             let (s, c, _) = super::survey::load_survey(path, None)?;
-            let g = crate::cosmology::Growth::new(&c);
+            let g = crate::cosmology::LinearPower::eisenstein_hu(&c);
             let at = src.find_key("survey", "kmax_h_mpc");
             warnings.extend(limits::check_kmax_modes(
                 &s,
