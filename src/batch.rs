@@ -246,7 +246,21 @@ pub fn load_plan_with(path: &Path, limits: &crate::limits::Limits) -> Result<Pla
             message: e.to_string(),
         })?;
         let s = Source::from_text(&format!("{} [grid point {index}]", path.display()), &text);
-        let scenario = resolve_scenario(&s, resolver.as_ref())?;
+        let scenario = resolve_scenario(&s, resolver.as_ref()).map_err(|e| {
+            if !e.is_input_error() {
+                return e;
+            }
+            let grid = values
+                .iter()
+                .map(|(p, v)| format!("{p} = {v}"))
+                .collect::<Vec<_>>()
+                .join(", ");
+            Error::BadField {
+                at: Location::WholeFile(path.to_path_buf()),
+                field: "plan.vary".into(),
+                message: format!("grid point {index} ({grid}) is not a valid scenario: {e}"),
+            }
+        })?;
         points.push(PlanPoint {
             index,
             folder: label,
