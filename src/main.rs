@@ -74,9 +74,20 @@ fn check_transfer_cosmology(
     transfer.check(c, at, "w0")
 }
 
+/// Ends a progress step left open when a command returns early (an error), so that
+/// the error is not drawn over a bar.
+struct StopOnDrop(Progress);
+
+impl Drop for StopOnDrop {
+    fn drop(&mut self) {
+        self.0.abort();
+    }
+}
+
 fn run(cli: Cli) -> ngreach::Result<String> {
     check_env()?;
     let progress = progress_for(cli.quiet);
+    let _stop = StopOnDrop(progress);
     let lim = Limits {
         allow_large: cli.allow_large,
     };

@@ -18,6 +18,10 @@ pub trait ProgressSink: Send + Sync {
     fn inc(&self, n: u64);
     /// The current step is done.
     fn finish(&self);
+    /// The current step (if any) ends without finishing, e.g. on an error.
+    fn abort(&self) {
+        self.finish();
+    }
 }
 
 /// A cheap, copyable progress handle (possibly silent). It refers to a sink that lives
@@ -78,6 +82,13 @@ impl Progress {
     pub fn finish(&self) {
         if let Some(s) = self.sink {
             s.finish();
+        }
+    }
+
+    /// The current step (if any) ends without finishing (an error stopped it).
+    pub fn abort(&self) {
+        if let Some(s) = self.sink {
+            s.abort();
         }
     }
 }
@@ -197,6 +208,26 @@ impl LogLines {
     }
 }
 
+impl LogLines {
+    fn end(&self, word: &str) {
+        let old = self.state.lock().unwrap_or_else(|e| e.into_inner()).take();
+        if let Some(mut s) = old {
+            drop(s.ticker.take());
+            let count = s
+                .total
+                .map_or(String::new(), |t| format!(" ({}/{t})", s.done));
+            Self::line(
+                &self.out,
+                &format!(
+                    "{}: {word}{count} after {:.1} s",
+                    s.step,
+                    s.started.elapsed().as_secs_f64()
+                ),
+            );
+        }
+    }
+}
+
 impl ProgressSink for LogLines {
     fn start(&self, step: &str, total: Option<u64>) {
         self.finish();
@@ -245,21 +276,11 @@ impl ProgressSink for LogLines {
     }
 
     fn finish(&self) {
-        let old = self.state.lock().unwrap_or_else(|e| e.into_inner()).take();
-        if let Some(mut s) = old {
-            drop(s.ticker.take());
-            let count = s
-                .total
-                .map_or(String::new(), |t| format!(" ({}/{t})", s.done));
-            Self::line(
-                &self.out,
-                &format!(
-                    "{}: finished{count} in {:.1} s",
-                    s.step,
-                    s.started.elapsed().as_secs_f64()
-                ),
-            );
-        }
+        self.end("finished");
+    }
+
+    fn abort(&self) {
+        self.end("stopped");
     }
 }
 
@@ -333,7 +354,7 @@ mod tests {
             lines[0].ends_with("survey bins: started (1000 items)"),
             "{text}"
         );
-        assert!(lines[1].contains("finished (1000/1000)"), "{text}");
+        assert!(lines[1].contains("finished (1000/1000) after"), "{text}");
         assert!(
             lines[0].starts_with("20") && lines[0].contains("Z ngreach:"),
             "{text}"
