@@ -60,6 +60,8 @@ struct PlanFile {
 pub struct PlanPoint {
     /// Index in the full (unsharded) grid.
     pub index: usize,
+    /// Number of points of the full (unsharded) grid.
+    pub grid_size: usize,
     /// Folder name.
     pub folder: String,
     /// (path, value) pairs of this point.
@@ -263,6 +265,7 @@ pub fn load_plan_with(path: &Path, limits: &crate::limits::Limits) -> Result<Pla
         })?;
         points.push(PlanPoint {
             index,
+            grid_size: total,
             folder: label,
             values,
             scenario,
@@ -430,38 +433,42 @@ pub fn write_point(dir: &Path, p: &PlanPoint) -> Result<()> {
     for (k, v) in &p.values {
         vals.insert(k.clone(), serde_json::to_value(v).unwrap_or(Value::Null));
     }
-    let j =
-        json!({"index": p.index, "folder": p.folder, "scenario": p.scenario.name, "values": vals});
+    let j = json!({"index": p.index, "grid_size": p.grid_size, "folder": p.folder, "scenario": p.scenario.name, "values": vals});
     crate::report::write_atomic(
         &dir.join("point.json"),
         (serde_json::to_string_pretty(&j).unwrap_or_default() + "\n").as_bytes(),
     )
 }
 
-/// A warning when the finished scenario folders under `out` leave gaps in the grid
-/// (indices from `point.json` below the largest one missing), as after merging only some
-/// of the shards; None when the indices are 0..n without gaps.
+/// A warning when the finished scenario folders under `out` do not cover the whole grid:
+/// fewer folders than the `grid_size` their `point.json` files record, or gaps below the
+/// largest index (as after merging only some of the shards); None when complete.
 pub fn grid_gaps(out: &Path) -> Option<String> {
-    let mut idx: Vec<u64> = std::fs::read_dir(out)
+    let points: Vec<Value> = std::fs::read_dir(out)
         .ok()?
         .filter_map(|e| e.ok().map(|e| e.path()))
         .filter(|p| p.join("summary.json").is_file())
         .filter_map(|p| {
             let text = std::fs::read_to_string(p.join("point.json")).ok()?;
-            serde_json::from_str::<Value>(&text).ok()?["index"].as_u64()
+            serde_json::from_str::<Value>(&text).ok()
         })
         .collect();
+    let mut idx: Vec<u64> = points.iter().filter_map(|p| p["index"].as_u64()).collect();
     idx.sort_unstable();
     idx.dedup();
     let top = *idx.last()?;
-    let missing = (top + 1).saturating_sub(idx.len() as u64);
+    let size = points
+        .iter()
+        .filter_map(|p| p["grid_size"].as_u64())
+        .max()
+        .unwrap_or(0)
+        .max(top + 1);
+    let missing = size.saturating_sub(idx.len() as u64);
     (missing > 0).then(|| {
         format!(
-            "{}: {} grid point(s) below index {top} are missing (only {} of at least {} scenarios); merge the remaining shards",
+            "{}: {missing} of {size} grid points are missing (only {} finished); merge the remaining shards",
             out.display(),
-            missing,
             idx.len(),
-            top + 1
         )
     })
 }

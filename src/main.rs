@@ -320,6 +320,13 @@ fn run(cli: Cli) -> ngreach::Result<String> {
         }
         Command::Merge(a) => {
             let n = commands::batch::merge(&a.out, &a.parts)?;
+            if n == 0 {
+                return Err(Error::BadField {
+                    at: Location::WholeFile(a.out.clone()),
+                    field: "OUT".into(),
+                    message: "no finished scenario folders (with summary.json and point.json) in it or in the shard folders given; nothing was merged".into(),
+                });
+            }
             if let Some(w) = ngreach::batch::grid_gaps(&a.out) {
                 warn(&w);
             }

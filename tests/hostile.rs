@@ -951,6 +951,13 @@ fn corpus() -> Vec<Case> {
         &["check", "sc.toml"],
         "l_min",
     ));
+    v.push(case(
+        "flag",
+        "merge of an empty folder",
+        &[("empty/.keep", String::new())],
+        &["merge", "empty"],
+        "no finished scenario",
+    ));
     // --- environment variables.
     for val in ["abc", "-1", "0", "nan", "inf", ""] {
         let mut c = case(
