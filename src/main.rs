@@ -149,7 +149,11 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                 cache: cache_options(&a.cache),
                 ..Default::default()
             };
-            let r = commands::batch::run_batch(&plan, &a.out, shard, &settings)?;
+            let outputs = ngreach::report::outputs::OutputOptions {
+                tables: a.tables,
+                report: true,
+            };
+            let r = commands::batch::run_batch(&plan, &a.out, shard, &settings, &outputs)?;
             Ok(format!(
                 "batch `{}`: {} scenario(s) computed, {} already complete (skipped), {} left to other shards; combined table of {} scenario(s) in {}/batch_summary.csv\n",
                 plan.name,
@@ -161,7 +165,7 @@ fn run(cli: Cli) -> ngreach::Result<String> {
             ))
         }
         Command::Merge(a) => {
-            let n = commands::batch::merge(&a.out, &a.parts)?;
+            let n = commands::merge::merge_expecting(&a.out, &a.parts, a.expect)?;
             Ok(format!(
                 "merged: combined table of {n} scenario(s) in {}/batch_summary.csv\n",
                 a.out.display()
@@ -186,9 +190,14 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                 cache: cache_options(&a.cache),
                 ..Default::default()
             };
-            let (text, result) = commands::run::run_to_dir(&sc, &a.out, &settings, a.quiet)?;
+            let outputs = ngreach::report::outputs::OutputOptions {
+                tables: a.tables,
+                report: true,
+            };
+            let (text, result) =
+                commands::run::run_to_dir_with(&sc, &a.out, &settings, a.quiet, &outputs)?;
             Ok(match a.format {
-                ngreach::report::Format::Json => {
+                ngreach::report::SummaryFormat::Json => {
                     serde_json::to_string_pretty(&ngreach::report::outputs::summary_json(&result))
                         .unwrap_or_default()
                         + "\n"

@@ -7,7 +7,7 @@ use std::time::Instant;
 
 use crate::error::Result;
 use crate::pipeline::{RunResult, RunSettings, run_scenario};
-use crate::report::outputs::{terminal_summary, write_outputs};
+use crate::report::outputs::{OutputOptions, terminal_summary, write_outputs_with};
 use crate::scenario::{Scenario, demo_scenario, load_scenario};
 
 /// Progress on stderr: one self-overwriting line with the stage and the elapsed time,
@@ -65,7 +65,8 @@ pub fn scenario_for(path: Option<&Path>) -> Result<Scenario> {
     }
 }
 
-/// Runs a scenario, writes its outputs into `out`, returns the terminal summary.
+/// Runs a scenario, writes its outputs into `out` (default options), returns the
+/// terminal summary.
 ///
 /// # Errors
 /// Any stage's failure; I/O errors writing the outputs.
@@ -75,16 +76,31 @@ pub fn run_to_dir(
     settings: &RunSettings,
     quiet: bool,
 ) -> Result<(String, RunResult)> {
+    run_to_dir_with(sc, out, settings, quiet, &OutputOptions::default())
+}
+
+/// [`run_to_dir`] with output options (table format, report page).
+///
+/// # Errors
+/// Any stage's failure; I/O errors writing the outputs.
+pub fn run_to_dir_with(
+    sc: &Scenario,
+    out: &Path,
+    settings: &RunSettings,
+    quiet: bool,
+    outputs: &OutputOptions,
+) -> Result<(String, RunResult)> {
     let mut progress = Progress::new(quiet);
     let result = run_scenario(sc, settings, &mut |s| progress.stage(s))?;
     progress.stage("writing tables and figures");
-    let files = write_outputs(&result, out)?;
+    let files = write_outputs_with(&result, out, outputs)?;
     progress.finish();
     let mut text = terminal_summary(&result);
     text.push_str(&format!(
-        "\nwrote {} files to {} (summary.json, CSV tables, table.tex, figures as PNG and SVG)\n",
+        "\nwrote {} files to {}: report.html (open in a browser), summary.json, {} tables, fisher/*.npy, table.tex, figures as PNG and SVG\n",
         files.len(),
-        out.display()
+        out.display(),
+        outputs.tables.extension().to_uppercase()
     ));
     Ok((text, result))
 }

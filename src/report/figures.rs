@@ -126,8 +126,12 @@ fn draw_err<E: std::fmt::Display>(e: E) -> Error {
 
 type Area<'a, DB> = DrawingArea<DB, Shift>;
 
-/// The legend box every figure uses: upper right, translucent white, thin grey border.
-fn draw_legend<'a, DB, CT>(chart: &mut ChartContext<'a, DB, CT>) -> Result<()>
+/// The legend box every figure uses: translucent white, thin grey border, at `pos`
+/// (chosen from the data by [`legend_corner`] so it covers none of it).
+fn draw_legend<'a, DB, CT>(
+    chart: &mut ChartContext<'a, DB, CT>,
+    pos: SeriesLabelPosition,
+) -> Result<()>
 where
     DB: DrawingBackend + 'a,
     DB::ErrorType: 'static,
@@ -135,12 +139,86 @@ where
 {
     chart
         .configure_series_labels()
-        .label_font((FAMILY, 24).into_font())
-        .background_style(WHITE.mix(0.85))
+        .label_font((FAMILY, LEGEND_FONT).into_font())
+        .legend_area_size(42)
+        .background_style(WHITE.mix(0.9))
         .border_style(RGBColor(180, 180, 180))
-        .position(SeriesLabelPosition::UpperRight)
+        .position(pos)
         .draw()
         .map_err(draw_err)
+}
+
+const LEGEND_FONT: u32 = 24;
+
+/// The legend's size as fractions of the plotting area (width, height), estimated from
+/// the labels (DejaVu Sans averages about 0.6 em per character).
+fn legend_fraction(labels: &[String], plot_px: (f64, f64)) -> (f64, f64) {
+    let chars = labels.iter().map(|l| l.chars().count()).max().unwrap_or(0) as f64;
+    let w = 42.0 + 20.0 + 10.0 + chars * 0.6 * LEGEND_FONT as f64;
+    let h = 20.0 + labels.len() as f64 * (LEGEND_FONT as f64 * 1.25);
+    (w / plot_px.0.max(1.0), h / plot_px.1.max(1.0))
+}
+
+/// The first corner (upper right, upper left, lower right, lower left) whose legend box
+/// holds none of the data samples (coordinates normalized to [0, 1] over the axes), or
+/// None when every corner is taken.
+fn legend_corner(samples: &[(f64, f64)], w: f64, h: f64) -> Option<SeriesLabelPosition> {
+    let m = 0.02;
+    let corners = [
+        (SeriesLabelPosition::UpperRight, 1.0 - w - m, 1.0 - h - m),
+        (SeriesLabelPosition::UpperLeft, 0.0, 1.0 - h - m),
+        (SeriesLabelPosition::LowerRight, 1.0 - w - m, 0.0),
+        (SeriesLabelPosition::LowerLeft, 0.0, 0.0),
+    ];
+    corners.into_iter().find_map(|(pos, x0, y0)| {
+        let free = !samples
+            .iter()
+            .any(|&(x, y)| x >= x0 && x <= x0 + w + m && y >= y0 && y <= y0 + h + m);
+        (free && w < 1.0 && h < 1.0).then_some(pos)
+    })
+}
+
+/// Maps a value to [0, 1] over an axis range.
+fn unit(v: f64, lo: f64, hi: f64, log: bool) -> f64 {
+    if log {
+        (v.ln() - lo.ln()) / (hi.ln() - lo.ln())
+    } else {
+        (v - lo) / (hi - lo)
+    }
+}
+
+/// The inverse of [`unit`].
+fn from_unit(t: f64, lo: f64, hi: f64, log: bool) -> f64 {
+    if log {
+        (lo.ln() + t * (hi.ln() - lo.ln())).exp()
+    } else {
+        lo + t * (hi - lo)
+    }
+}
+
+/// Samples along polylines (normalized coordinates), dense enough to find a legend box
+/// that a line crosses.
+fn sample_polyline(pts: &[(f64, f64)], out: &mut Vec<(f64, f64)>) {
+    if pts.len() == 1 {
+        out.push(pts[0]);
+    }
+    for w in pts.windows(2) {
+        for i in 0..=40 {
+            let t = i as f64 / 40.0;
+            out.push((
+                w[0].0 + t * (w[1].0 - w[0].0),
+                w[0].1 + t * (w[1].1 - w[0].1),
+            ));
+        }
+    }
+}
+
+/// Raises the top of an axis range so that everything at or below `top_data` sits under
+/// a legend of height `h` (fraction) in an upper corner.
+fn headroom(lo: f64, hi: f64, top_data: f64, h: f64, log: bool) -> f64 {
+    let frac = (1.0 - h - 0.04).max(0.3);
+    let t = unit(top_data, lo, hi, log).max(0.0);
+    from_unit(t / frac, lo, hi, log).max(hi)
 }
 
 /// Tick label: compact numbers (log axes carry their own key points, [`log_keys`]).
@@ -186,10 +264,54 @@ fn log_keys(a: f64, b: f64) -> Vec<f64> {
     pick(&[1.0, 2.0, 3.0, 4.0, 5.0, 6.0, 7.0, 8.0, 9.0])
 }
 
+/// The points of a series that an axis pair can show.
+fn drawable(s: &Series, log_x: bool, log_y: bool) -> Vec<(f64, f64)> {
+    s.points
+        .iter()
+        .copied()
+        .filter(|q| {
+            q.0.is_finite() && q.1.is_finite() && (!log_x || q.0 > 0.0) && (!log_y || q.1 > 0.0)
+        })
+        .collect()
+}
+
+/// Draws a line plot. `steps`: the series are staircases (pairs of bin edges), drawn
+/// without point markers.
+/// Key points of a colour bar over [a, b]: the log key points plus both ends (rounded
+/// inward to two significant digits), so the labels span the whole range.
+fn bar_keys(a: f64, b: f64) -> Vec<f64> {
+    let (lo, hi) = (a.min(b), a.max(b));
+    if !(lo > 0.0 && hi.is_finite()) {
+        return Vec::new();
+    }
+    let round = |x: f64, up: bool| {
+        let q = 10f64.powf(1.0 - x.log10().floor());
+        if up {
+            (x * q).ceil() / q
+        } else {
+            (x * q).floor() / q
+        }
+    };
+    let (l, h) = (round(lo, true), round(hi, false));
+    let span = (hi / lo).ln().max(1e-12);
+    let mut k: Vec<f64> = log_keys(lo, hi)
+        .into_iter()
+        .filter(|&v| (v / l).ln() / span > 0.08 && (h / v).ln() / span > 0.08)
+        .collect();
+    if l <= h {
+        k.insert(0, l);
+        if h > l {
+            k.push(h);
+        }
+    }
+    k
+}
+
 fn draw_lines<DB: DrawingBackend>(
     area: &Area<'_, DB>,
     p: &LinePlot,
     x_override: Option<(f64, f64)>,
+    steps: bool,
 ) -> Result<()>
 where
     DB::ErrorType: 'static,
@@ -203,7 +325,59 @@ where
     let (x0, x1) = x_override
         .or_else(|| finite_range(xs, p.log_x))
         .unwrap_or((1.0, 10.0));
-    let (y0, y1) = finite_range(ys, p.log_y).unwrap_or((1.0, 10.0));
+    let (y0, mut y1) = finite_range(ys, p.log_y).unwrap_or((1.0, 10.0));
+    // The legend goes into a corner the data leave empty; when none is, the y range
+    // grows upward until the upper corners are.
+    let labels: Vec<String> = p
+        .bands
+        .iter()
+        .map(|b| b.label.clone())
+        .chain(
+            p.series
+                .iter()
+                .filter(|s| !drawable(s, p.log_x, p.log_y).is_empty())
+                .map(|s| s.label.clone()),
+        )
+        .collect();
+    let (w_px, h_px) = area.dim_in_pixel();
+    let title_px = if p.title.is_empty() { 0.0 } else { 50.0 };
+    let plot_px = (w_px as f64 - 160.0, h_px as f64 - 120.0 - title_px);
+    let (lw, lh) = legend_fraction(&labels, plot_px);
+    let samples = |y1: f64| -> Vec<(f64, f64)> {
+        let mut v = Vec::new();
+        for s in &p.series {
+            let pts: Vec<(f64, f64)> = drawable(s, p.log_x, p.log_y)
+                .into_iter()
+                .map(|q| (unit(q.0, x0, x1, p.log_x), unit(q.1, y0, y1, p.log_y)))
+                .collect();
+            sample_polyline(&pts, &mut v);
+        }
+        for b in &p.bands {
+            for i in 0..=40 {
+                let x = i as f64 / 40.0;
+                for j in 0..=8 {
+                    let y = b.lo + (b.hi - b.lo) * j as f64 / 8.0;
+                    if y.is_finite() && (!p.log_y || y > 0.0) {
+                        v.push((x, unit(y, y0, y1, p.log_y)));
+                    }
+                }
+            }
+        }
+        v
+    };
+    let pos = match legend_corner(&samples(y1), lw, lh) {
+        Some(pos) => pos,
+        None => {
+            let top = p
+                .series
+                .iter()
+                .flat_map(|s| drawable(s, p.log_x, p.log_y).into_iter().map(|q| q.1))
+                .chain(p.bands.iter().map(|b| b.hi).filter(|v| v.is_finite()))
+                .fold(y0, f64::max);
+            y1 = headroom(y0, y1, top, lh, p.log_y);
+            legend_corner(&samples(y1), lw, lh).unwrap_or(SeriesLabelPosition::UpperRight)
+        }
+    };
     let font = |sz: u32| (FAMILY, sz).into_font();
     let mut b = ChartBuilder::on(area);
     b.margin(20)
@@ -227,45 +401,64 @@ where
                 .bold_line_style(RGBColor(215, 215, 215))
                 .draw()
                 .map_err(draw_err)?;
-            for band in &p.bands {
+            for (ib, band) in p.bands.iter().enumerate() {
+                // Outlined bands: a light fill plus both edges in the band's colour, solid
+                // for even bands and dashed for odd ones, so overlapping bands stay
+                // distinguishable.
                 let c = colour(band.colour);
+                let dashed = ib % 2 == 1;
+                let edge = c.stroke_width(3);
                 if band.hi > band.lo {
                     chart
                         .draw_series(std::iter::once(Rectangle::new(
                             [(x0, band.lo), (x1, band.hi)],
-                            c.mix(0.18).filled(),
+                            c.mix(0.10).filled(),
                         )))
-                        .map_err(draw_err)?
-                        .label(&band.label)
-                        .legend(move |(x, y)| {
-                            Rectangle::new([(x, y - 8), (x + 30, y + 8)], c.mix(0.35).filled())
-                        });
+                        .map_err(draw_err)?;
+                }
+                let edges: Vec<f64> = if band.hi > band.lo {
+                    vec![band.lo, band.hi]
                 } else {
-                    chart
-                        .draw_series(LineSeries::new(
-                            [(x0, band.lo), (x1, band.lo)],
-                            c.stroke_width(3),
-                        ))
-                        .map_err(draw_err)?
-                        .label(&band.label)
-                        .legend(move |(x, y)| {
-                            PathElement::new([(x, y), (x + 30, y)], c.stroke_width(3))
+                    vec![band.lo]
+                };
+                for (ie, &y) in edges.iter().enumerate() {
+                    let line = [(x0, y), (x1, y)];
+                    let anno = if dashed {
+                        chart
+                            .draw_series(DashedLineSeries::new(line, 18, 10, edge))
+                            .map_err(draw_err)?
+                    } else {
+                        chart
+                            .draw_series(LineSeries::new(line, edge))
+                            .map_err(draw_err)?
+                    };
+                    if ie == 0 && dashed {
+                        anno.label(&band.label).legend(move |(x, y)| {
+                            let seg = |x0: i32, x1: i32, yy: i32| {
+                                PathElement::new([(x0, yy), (x1, yy)], c.stroke_width(3))
+                            };
+                            EmptyElement::at((x, y))
+                                + Rectangle::new([(0, -9), (30, 9)], c.mix(0.15).filled())
+                                + seg(0, 11, -9)
+                                + seg(19, 30, -9)
+                                + seg(0, 11, 9)
+                                + seg(19, 30, 9)
                         });
+                    } else if ie == 0 {
+                        anno.label(&band.label).legend(move |(x, y)| {
+                            let seg =
+                                |yy: i32| PathElement::new([(0, yy), (30, yy)], c.stroke_width(3));
+                            EmptyElement::at((x, y))
+                                + Rectangle::new([(0, -9), (30, 9)], c.mix(0.15).filled())
+                                + seg(-9)
+                                + seg(9)
+                        });
+                    }
                 }
             }
             for s in &p.series {
                 let c = colour(s.colour);
-                let pts: Vec<(f64, f64)> = s
-                    .points
-                    .iter()
-                    .copied()
-                    .filter(|q| {
-                        q.0.is_finite()
-                            && q.1.is_finite()
-                            && (!p.log_x || q.0 > 0.0)
-                            && (!p.log_y || q.1 > 0.0)
-                    })
-                    .collect();
+                let pts = drawable(s, p.log_x, p.log_y);
                 if pts.is_empty() {
                     continue;
                 }
@@ -287,12 +480,14 @@ where
                             PathElement::new([(x, y), (x + 30, y)], c.stroke_width(4))
                         });
                 }
-                chart
-                    .draw_series(pts.iter().map(|&q| Circle::new(q, 5, c.filled())))
-                    .map_err(draw_err)?;
+                if !steps {
+                    chart
+                        .draw_series(pts.iter().map(|&q| Circle::new(q, 5, c.filled())))
+                        .map_err(draw_err)?;
+                }
             }
-            if !p.series.is_empty() || !p.bands.is_empty() {
-                draw_legend(&mut chart)?;
+            if !labels.is_empty() {
+                draw_legend(&mut chart, pos)?;
             }
         }};
     }
@@ -330,6 +525,9 @@ pub enum Figure {
     Lines(LinePlot),
     /// Two line plots stacked (top 62%, bottom 38%) sharing the x range.
     TwoPanel(LinePlot, LinePlot),
+    /// A line plot whose series are staircases: for each bin the points (x_lo, y) and
+    /// (x_hi, y), drawn as steps without point markers (e.g. per redshift bin).
+    Steps(LinePlot),
     /// A plane: values on a grid (log10 colour scale) with an optional contour line.
     Plane(PlanePlot),
     /// Ellipses in a plane.
@@ -355,6 +553,9 @@ pub struct PlanePlot {
     pub value_label: String,
     /// A curve to overlay (e.g. the crossover), with its legend label.
     pub curve: Option<(String, Vec<(f64, f64)>)>,
+    /// Upper bounds on the curve's x at a y: the curve lies at or below this x, left of
+    /// the grid (drawn as arrows to the plot's left edge, never as found points).
+    pub bounds: Vec<(f64, f64)>,
 }
 
 /// Ellipses (1 and 2 sigma) for several probes in one parameter plane.
@@ -370,11 +571,11 @@ pub struct EllipsePlot {
     pub ellipses: Vec<(String, [f64; 3], usize)>,
 }
 
-/// Writes `fig` as `stem.png` and `stem.svg` in `dir`.
+/// Writes `fig` as `stem.png` and `stem.svg` in `dir`; returns the SVG text.
 ///
 /// # Errors
 /// I/O errors and drawing failures.
-pub fn write_figure(fig: &Figure, dir: &Path, stem: &str) -> Result<()> {
+pub fn write_figure(fig: &Figure, dir: &Path, stem: &str) -> Result<String> {
     register_font();
     let png = dir.join(format!("{stem}.png"));
     let svg = dir.join(format!("{stem}.svg"));
@@ -395,7 +596,7 @@ pub fn write_figure(fig: &Figure, dir: &Path, stem: &str) -> Result<()> {
         path: png.clone(),
         source,
     })?;
-    Ok(())
+    Ok(text)
 }
 
 fn render<DB: DrawingBackend>(fig: &Figure, root: &Area<'_, DB>) -> Result<()>
@@ -404,7 +605,8 @@ where
 {
     root.fill(&WHITE).map_err(draw_err)?;
     match fig {
-        Figure::Lines(p) => draw_lines(root, p, None),
+        Figure::Lines(p) => draw_lines(root, p, None, false),
+        Figure::Steps(p) => draw_lines(root, p, None, true),
         Figure::TwoPanel(a, b) => {
             let (top, bottom) = root.split_vertically((SIZE.1 as f64 * 0.62) as u32);
             let xs = a
@@ -413,8 +615,8 @@ where
                 .chain(&b.series)
                 .flat_map(|s| s.points.iter().map(|q| q.0));
             let xr = finite_range(xs, a.log_x);
-            draw_lines(&top, a, xr)?;
-            draw_lines(&bottom, b, xr)
+            draw_lines(&top, a, xr, false)?;
+            draw_lines(&bottom, b, xr, false)
         }
         Figure::Plane(p) => draw_plane(root, p),
         Figure::Ellipses(p) => draw_ellipses(root, p),
@@ -462,7 +664,9 @@ where
     DB::ErrorType: 'static,
 {
     let font = |sz: u32| (FAMILY, sz).into_font();
-    let (main, bar) = root.split_horizontally(1000);
+    let (left, bar) = root.split_horizontally(1000);
+    // The legend sits in a strip under the axes: over a filled plane it would cover data.
+    let (main, strip) = left.split_vertically(SIZE.1 - 60);
     let ex = edges(&p.x);
     let ey = edges(&p.y);
     let logs: Vec<f64> = p
@@ -522,6 +726,8 @@ where
                 .map_err(draw_err)?;
         }
     }
+    let c = colour(1);
+    let mut legend: Vec<(String, bool)> = Vec::new();
     if let Some((label, pts)) = &p.curve {
         let pts: Vec<(f64, f64)> = pts
             .iter()
@@ -529,17 +735,79 @@ where
             .filter(|q| q.0.is_finite() && q.1.is_finite() && q.0 > 0.0 && q.1 > 0.0)
             .collect();
         if !pts.is_empty() {
-            let c = colour(1);
             chart
                 .draw_series(LineSeries::new(pts.clone(), c.stroke_width(5)))
-                .map_err(draw_err)?
-                .label(label)
-                .legend(move |(x, y)| PathElement::new([(x, y), (x + 30, y)], c.stroke_width(5)));
+                .map_err(draw_err)?;
             chart
                 .draw_series(pts.iter().map(|&q| Circle::new(q, 6, c.filled())))
                 .map_err(draw_err)?;
-            draw_legend(&mut chart)?;
+            legend.push((label.clone(), false));
         }
+    }
+    // Bounds: an arrow from the first grid column to the left edge, with its head on
+    // the edge: the crossover lies somewhere left of the grid.
+    let bounds: Vec<(f64, f64)> = p
+        .bounds
+        .iter()
+        .copied()
+        .filter(|q| q.0.is_finite() && q.1.is_finite() && q.0 > 0.0 && q.1 > 0.0)
+        .collect();
+    for &(k, l) in &bounds {
+        let from = chart.backend_coord(&(k, l));
+        let to = chart.backend_coord(&(ex[0], l));
+        let head = (to.0 + 2, to.1);
+        root.draw(&PathElement::new(
+            [from, (head.0 + 14, head.1)],
+            c.stroke_width(4),
+        ))
+        .map_err(draw_err)?;
+        root.draw(&Polygon::new(
+            vec![head, (head.0 + 20, head.1 - 11), (head.0 + 20, head.1 + 11)],
+            c.filled(),
+        ))
+        .map_err(draw_err)?;
+    }
+    if !bounds.is_empty() {
+        legend.push((
+            format!(
+                "crossover below the grid (kₘₐₓ ≤ {} h/Mpc)",
+                tick(p.x.first().copied().unwrap_or(f64::NAN), false)
+            ),
+            true,
+        ));
+    }
+    let mut x = 150;
+    for (label, arrow) in &legend {
+        let y = 25;
+        if *arrow {
+            strip
+                .draw(&PathElement::new(
+                    [(x + 8, y), (x + 40, y)],
+                    c.stroke_width(4),
+                ))
+                .map_err(draw_err)?;
+            strip
+                .draw(&Polygon::new(
+                    vec![(x, y), (x + 18, y - 10), (x + 18, y + 10)],
+                    c.filled(),
+                ))
+                .map_err(draw_err)?;
+        } else {
+            strip
+                .draw(&PathElement::new([(x, y), (x + 40, y)], c.stroke_width(5)))
+                .map_err(draw_err)?;
+            strip
+                .draw(&Circle::new((x + 20, y), 6, c.filled()))
+                .map_err(draw_err)?;
+        }
+        strip
+            .draw(&Text::new(
+                label.clone(),
+                (x + 52, y - 13),
+                (FAMILY, LEGEND_FONT).into_font(),
+            ))
+            .map_err(draw_err)?;
+        x += 52 + (label.chars().count() as f64 * 0.6 * LEGEND_FONT as f64) as i32 + 40;
     }
     // Colour bar.
     let mut cb = ChartBuilder::on(&bar)
@@ -551,7 +819,7 @@ where
             0.0..1.0,
             (10f64.powf(lo)..10f64.powf(hi))
                 .log_scale()
-                .with_key_points(log_keys(10f64.powf(lo), 10f64.powf(hi))),
+                .with_key_points(bar_keys(10f64.powf(lo), 10f64.powf(hi))),
         )
         .map_err(draw_err)?;
     cb.configure_mesh()
@@ -613,6 +881,8 @@ where
     DB::ErrorType: 'static,
 {
     let font = |sz: u32| (FAMILY, sz).into_font();
+    let (p68, p95) = (0.682_689_492, 0.954_499_736);
+    let (d68, d95) = (delta_chi2(p68), delta_chi2(p95));
     let mut ext: f64 = 0.0;
     let mut eyt: f64 = 0.0;
     let curves: Vec<EllipseCurves> = p
@@ -620,8 +890,8 @@ where
         .iter()
         .filter(|e| e.1.iter().all(|v| v.is_finite()) && e.1[0] > 0.0 && e.1[2] > 0.0)
         .map(|(l, cov, c)| {
-            let one = ellipse_points(*cov, delta_chi2(0.682_689_492), 200);
-            let two = ellipse_points(*cov, delta_chi2(0.954_499_736), 200);
+            let one = ellipse_points(*cov, d68, 360);
+            let two = ellipse_points(*cov, d95, 360);
             for q in &two {
                 ext = ext.max(q.0.abs());
                 eyt = eyt.max(q.1.abs());
@@ -630,15 +900,42 @@ where
         })
         .collect();
     let (ext, eyt) = (
-        if ext > 0.0 { ext * 1.15 } else { 1.0 },
-        if eyt > 0.0 { eyt * 1.15 } else { 1.0 },
+        if ext > 0.0 { ext * 1.12 } else { 1.0 },
+        if eyt > 0.0 { eyt * 1.12 } else { 1.0 },
     );
+    // Legend: one entry per probe plus the two line styles; in a corner the contours
+    // leave empty, else above them (the y range grows upward).
+    let mut labels: Vec<String> = curves.iter().map(|c| c.0.clone()).collect();
+    let level_labels = [
+        format!("68% (Δχ² = {})", crate::report::format_sig(d68, 3)),
+        format!("95% (Δχ² = {})", crate::report::format_sig(d95, 3)),
+    ];
+    labels.extend(level_labels.iter().cloned());
+    let (w_px, h_px) = root.dim_in_pixel();
+    let (lw, lh) = legend_fraction(&labels, (w_px as f64 - 160.0, h_px as f64 - 170.0));
+    let samples = |y1: f64| -> Vec<(f64, f64)> {
+        let mut v = Vec::new();
+        for (_, _, one, two) in &curves {
+            for q in one.iter().chain(two) {
+                v.push((unit(q.0, -ext, ext, false), unit(q.1, -eyt, y1, false)));
+            }
+        }
+        v
+    };
+    let mut y1 = eyt;
+    let pos = match legend_corner(&samples(y1), lw, lh) {
+        Some(pos) => pos,
+        None => {
+            y1 = headroom(-eyt, eyt, eyt / 1.12, lh, false);
+            legend_corner(&samples(y1), lw, lh).unwrap_or(SeriesLabelPosition::UpperRight)
+        }
+    };
     let mut chart = ChartBuilder::on(root)
         .margin(20)
         .x_label_area_size(80)
         .y_label_area_size(120)
-        .caption(&p.title, font(34))
-        .build_cartesian_2d(-ext..ext, -eyt..eyt)
+        .caption(&p.title, font(32))
+        .build_cartesian_2d(-ext..ext, -eyt..y1)
         .map_err(draw_err)?;
     chart
         .configure_mesh()
@@ -649,33 +946,63 @@ where
         .x_label_formatter(&|v| tick(*v, false))
         .y_label_formatter(&|v| tick(*v, false))
         .light_line_style(WHITE)
+        .bold_line_style(RGBColor(225, 225, 225))
         .draw()
         .map_err(draw_err)?;
+    // Outline contours only: 68% solid and thick, 95% dashed and thinner.
     for (label, ci, one, two) in &curves {
         let c = colour(*ci);
-        chart
-            .draw_series(std::iter::once(Polygon::new(
-                two.clone(),
-                c.mix(0.12).filled(),
-            )))
-            .map_err(draw_err)?;
-        chart
-            .draw_series(std::iter::once(Polygon::new(
-                one.clone(),
-                c.mix(0.3).filled(),
-            )))
-            .map_err(draw_err)?;
         chart
             .draw_series(LineSeries::new(one.clone(), c.stroke_width(4)))
             .map_err(draw_err)?
             .label(label)
             .legend(move |(x, y)| PathElement::new([(x, y), (x + 30, y)], c.stroke_width(4)));
         chart
-            .draw_series(LineSeries::new(two.clone(), c.stroke_width(2)))
+            .draw_series(DashedLineSeries::new(
+                two.clone(),
+                16,
+                10,
+                c.stroke_width(3),
+            ))
             .map_err(draw_err)?;
     }
+    let grey = RGBColor(90, 90, 90);
+    chart
+        .draw_series(std::iter::once(PathElement::new(
+            [(0.0, 0.0), (0.0, 0.0)],
+            grey.stroke_width(1),
+        )))
+        .map_err(draw_err)?
+        .label(&level_labels[0])
+        .legend(move |(x, y)| PathElement::new([(x, y), (x + 30, y)], grey.stroke_width(4)));
+    chart
+        .draw_series(std::iter::once(PathElement::new(
+            [(0.0, 0.0), (0.0, 0.0)],
+            grey.stroke_width(1),
+        )))
+        .map_err(draw_err)?
+        .label(&level_labels[1])
+        .legend(move |(x, y)| {
+            EmptyElement::at((x, y))
+                + PathElement::new([(0, 0), (11, 0)], grey.stroke_width(3))
+                + PathElement::new([(19, 0), (30, 0)], grey.stroke_width(3))
+        });
+    // Level labels on the widest probe's contours, where each crosses the +x axis.
+    if let Some((_, ci, one, two)) = curves.iter().max_by(|a, b| {
+        let w = |c: &EllipseCurves| c.3.iter().map(|q| q.0).fold(0.0, f64::max);
+        w(a).total_cmp(&w(b))
+    }) {
+        let c = colour(*ci);
+        for (pts, text) in [(one, "68%"), (two, "95%")] {
+            if let Some(q) = pts.iter().copied().max_by(|a, b| a.0.total_cmp(&b.0)) {
+                let (px, py) = chart.backend_coord(&q);
+                root.draw(&Text::new(text, (px + 6, py - 14), font(22).color(&c)))
+                    .map_err(draw_err)?;
+            }
+        }
+    }
     if !curves.is_empty() {
-        draw_legend(&mut chart)?;
+        draw_legend(&mut chart, pos)?;
     }
     Ok(())
 }
@@ -698,6 +1025,32 @@ mod tests {
         let k = log_keys(40.0, 60.0);
         assert!(close(&k, &[40.0, 50.0, 60.0]), "{k:?}");
         assert!(log_keys(0.0, 10.0).is_empty());
+    }
+
+    #[test]
+    fn colour_bar_labels_span_the_range() {
+        let k = bar_keys(1.77, 19.4);
+        assert_eq!(k.first().copied(), Some(1.8));
+        assert_eq!(k.last().copied(), Some(19.0));
+        assert!(k.contains(&5.0) && k.contains(&10.0), "{k:?}");
+    }
+
+    #[test]
+    fn legend_goes_where_the_data_are_not() {
+        // Data along the top: a lower corner is chosen.
+        let top: Vec<(f64, f64)> = (0..=20).map(|i| (i as f64 / 20.0, 0.95)).collect();
+        assert!(matches!(
+            legend_corner(&top, 0.3, 0.2),
+            Some(SeriesLabelPosition::LowerRight)
+        ));
+        // Data everywhere: no corner.
+        let all: Vec<(f64, f64)> = (0..=400)
+            .map(|i| ((i % 20) as f64 / 19.0, (i / 20) as f64 / 19.0))
+            .collect();
+        assert!(legend_corner(&all, 0.3, 0.2).is_none());
+        // Headroom puts the data under the legend.
+        let y1 = headroom(1.0, 10.0, 10.0, 0.25, true);
+        assert!(unit(10.0, 1.0, y1, true) <= 1.0 - 0.25);
     }
 
     #[test]
