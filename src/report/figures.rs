@@ -876,135 +876,215 @@ pub fn ellipse_points(cov: [f64; 3], delta_chi2: f64, n: usize) -> Vec<(f64, f64
 /// (label, palette index, 1-sigma points, 2-sigma points).
 type EllipseCurves = (String, usize, Vec<(f64, f64)>, Vec<(f64, f64)>);
 
-fn draw_ellipses<DB: DrawingBackend>(root: &Area<'_, DB>, p: &EllipsePlot) -> Result<()>
+/// The legend strip under a figure: rows of (label, how to draw the sample) entries.
+fn legend_strip<DB: DrawingBackend>(
+    strip: &Area<'_, DB>,
+    rows: &[Vec<(String, RGBColor, bool)>],
+) -> Result<()>
+where
+    DB::ErrorType: 'static,
+{
+    for (ir, row) in rows.iter().enumerate() {
+        let y = 18 + 34 * ir as i32;
+        let mut x = 130;
+        for (label, c, dashed) in row {
+            if *dashed {
+                for x0 in [x, x + 22] {
+                    strip
+                        .draw(&PathElement::new(
+                            [(x0, y), (x0 + 14, y)],
+                            c.stroke_width(3),
+                        ))
+                        .map_err(draw_err)?;
+                }
+            } else {
+                strip
+                    .draw(&PathElement::new([(x, y), (x + 36, y)], c.stroke_width(4)))
+                    .map_err(draw_err)?;
+            }
+            strip
+                .draw(&Text::new(
+                    label.clone(),
+                    (x + 46, y - 12),
+                    (FAMILY, LEGEND_FONT).into_font(),
+                ))
+                .map_err(draw_err)?;
+            x += 46 + (label.chars().count() as f64 * 0.6 * LEGEND_FONT as f64) as i32 + 36;
+        }
+    }
+    Ok(())
+}
+
+/// One panel of ellipses over [-ext, ext] x [-eyt, eyt]; `levels`: write "68%" and
+/// "95%" on the contours of the curve with index `levels`.
+fn ellipse_panel<DB: DrawingBackend>(
+    area: &Area<'_, DB>,
+    root: &Area<'_, DB>,
+    p: &EllipsePlot,
+    curves: &[EllipseCurves],
+    (ext, eyt): (f64, f64),
+    caption: &str,
+    levels: Option<usize>,
+) -> Result<()>
 where
     DB::ErrorType: 'static,
 {
     let font = |sz: u32| (FAMILY, sz).into_font();
-    let (p68, p95) = (0.682_689_492, 0.954_499_736);
-    let (d68, d95) = (delta_chi2(p68), delta_chi2(p95));
-    let mut ext: f64 = 0.0;
-    let mut eyt: f64 = 0.0;
-    let curves: Vec<EllipseCurves> = p
-        .ellipses
-        .iter()
-        .filter(|e| e.1.iter().all(|v| v.is_finite()) && e.1[0] > 0.0 && e.1[2] > 0.0)
-        .map(|(l, cov, c)| {
-            let one = ellipse_points(*cov, d68, 360);
-            let two = ellipse_points(*cov, d95, 360);
-            for q in &two {
-                ext = ext.max(q.0.abs());
-                eyt = eyt.max(q.1.abs());
-            }
-            (l.clone(), *c, one, two)
-        })
-        .collect();
-    let (ext, eyt) = (
-        if ext > 0.0 { ext * 1.12 } else { 1.0 },
-        if eyt > 0.0 { eyt * 1.12 } else { 1.0 },
-    );
-    // Legend: one entry per probe plus the two line styles; in a corner the contours
-    // leave empty, else above them (the y range grows upward).
-    let mut labels: Vec<String> = curves.iter().map(|c| c.0.clone()).collect();
-    let level_labels = [
-        format!("68% (Δχ² = {})", crate::report::format_sig(d68, 3)),
-        format!("95% (Δχ² = {})", crate::report::format_sig(d95, 3)),
-    ];
-    labels.extend(level_labels.iter().cloned());
-    let (w_px, h_px) = root.dim_in_pixel();
-    let (lw, lh) = legend_fraction(&labels, (w_px as f64 - 160.0, h_px as f64 - 170.0));
-    let samples = |y1: f64| -> Vec<(f64, f64)> {
-        let mut v = Vec::new();
-        for (_, _, one, two) in &curves {
-            for q in one.iter().chain(two) {
-                v.push((unit(q.0, -ext, ext, false), unit(q.1, -eyt, y1, false)));
-            }
-        }
-        v
-    };
-    let mut y1 = eyt;
-    let pos = match legend_corner(&samples(y1), lw, lh) {
-        Some(pos) => pos,
-        None => {
-            y1 = headroom(-eyt, eyt, eyt / 1.12, lh, false);
-            legend_corner(&samples(y1), lw, lh).unwrap_or(SeriesLabelPosition::UpperRight)
-        }
-    };
-    let mut chart = ChartBuilder::on(root)
-        .margin(20)
-        .x_label_area_size(80)
-        .y_label_area_size(120)
-        .caption(&p.title, font(32))
-        .build_cartesian_2d(-ext..ext, -eyt..y1)
+    let mut chart = ChartBuilder::on(area)
+        .margin(15)
+        .x_label_area_size(70)
+        .y_label_area_size(110)
+        .caption(caption, font(26))
+        .build_cartesian_2d(-ext..ext, -eyt..eyt)
         .map_err(draw_err)?;
     chart
         .configure_mesh()
         .x_desc(&p.x_label)
         .y_desc(&p.y_label)
-        .label_style(font(26))
-        .axis_desc_style(font(30))
+        .label_style(font(22))
+        .axis_desc_style(font(26))
+        .x_labels(5)
         .x_label_formatter(&|v| tick(*v, false))
         .y_label_formatter(&|v| tick(*v, false))
         .light_line_style(WHITE)
         .bold_line_style(RGBColor(225, 225, 225))
         .draw()
         .map_err(draw_err)?;
-    // Outline contours only: 68% solid and thick, 95% dashed and thinner.
-    for (label, ci, one, two) in &curves {
+    // Outline contours only: 68% solid and thick, 95% dashed and thinner; each drawn
+    // only where it lies inside the panel (a zoom shows pieces of larger contours).
+    for (_, ci, one, two) in curves {
         let c = colour(*ci);
-        chart
-            .draw_series(LineSeries::new(one.clone(), c.stroke_width(4)))
-            .map_err(draw_err)?
-            .label(label)
-            .legend(move |(x, y)| PathElement::new([(x, y), (x + 30, y)], c.stroke_width(4)));
-        chart
-            .draw_series(DashedLineSeries::new(
-                two.clone(),
-                16,
-                10,
-                c.stroke_width(3),
-            ))
-            .map_err(draw_err)?;
+        for run in clip_runs(one, ext, eyt) {
+            chart
+                .draw_series(LineSeries::new(run, c.stroke_width(4)))
+                .map_err(draw_err)?;
+        }
+        for run in clip_runs(two, ext, eyt) {
+            chart
+                .draw_series(DashedLineSeries::new(run, 16, 10, c.stroke_width(3)))
+                .map_err(draw_err)?;
+        }
     }
-    let grey = RGBColor(90, 90, 90);
-    chart
-        .draw_series(std::iter::once(PathElement::new(
-            [(0.0, 0.0), (0.0, 0.0)],
-            grey.stroke_width(1),
-        )))
-        .map_err(draw_err)?
-        .label(&level_labels[0])
-        .legend(move |(x, y)| PathElement::new([(x, y), (x + 30, y)], grey.stroke_width(4)));
-    chart
-        .draw_series(std::iter::once(PathElement::new(
-            [(0.0, 0.0), (0.0, 0.0)],
-            grey.stroke_width(1),
-        )))
-        .map_err(draw_err)?
-        .label(&level_labels[1])
-        .legend(move |(x, y)| {
-            EmptyElement::at((x, y))
-                + PathElement::new([(0, 0), (11, 0)], grey.stroke_width(3))
-                + PathElement::new([(19, 0), (30, 0)], grey.stroke_width(3))
-        });
-    // Level labels on the widest probe's contours, where each crosses the +x axis.
-    if let Some((_, ci, one, two)) = curves.iter().max_by(|a, b| {
-        let w = |c: &EllipseCurves| c.3.iter().map(|q| q.0).fold(0.0, f64::max);
-        w(a).total_cmp(&w(b))
-    }) {
+    if let Some((_, ci, one, two)) = levels.and_then(|i| curves.get(i)) {
         let c = colour(*ci);
         for (pts, text) in [(one, "68%"), (two, "95%")] {
-            if let Some(q) = pts.iter().copied().max_by(|a, b| a.0.total_cmp(&b.0)) {
+            if let Some(q) = pts.iter().copied().max_by(|a, b| a.1.total_cmp(&b.1)) {
                 let (px, py) = chart.backend_coord(&q);
-                root.draw(&Text::new(text, (px + 6, py - 14), font(22).color(&c)))
+                root.draw(&Text::new(text, (px + 4, py - 26), font(22).color(&c)))
                     .map_err(draw_err)?;
             }
         }
     }
-    if !curves.is_empty() {
-        draw_legend(&mut chart, pos)?;
-    }
     Ok(())
+}
+
+/// The pieces of a closed polyline that lie inside [-ext, ext] x [-eyt, eyt].
+fn clip_runs(pts: &[(f64, f64)], ext: f64, eyt: f64) -> Vec<Vec<(f64, f64)>> {
+    let inside = |q: &(f64, f64)| q.0.abs() <= ext && q.1.abs() <= eyt;
+    let mut runs: Vec<Vec<(f64, f64)>> = Vec::new();
+    let mut cur: Vec<(f64, f64)> = Vec::new();
+    for q in pts {
+        if inside(q) {
+            cur.push(*q);
+        } else if !cur.is_empty() {
+            runs.push(std::mem::take(&mut cur));
+        }
+    }
+    if !cur.is_empty() {
+        runs.push(cur);
+    }
+    runs.retain(|r| r.len() > 1);
+    runs
+}
+
+fn draw_ellipses<DB: DrawingBackend>(root: &Area<'_, DB>, p: &EllipsePlot) -> Result<()>
+where
+    DB::ErrorType: 'static,
+{
+    let (d68, d95) = (delta_chi2(0.682_689_492), delta_chi2(0.954_499_736));
+    let curves: Vec<EllipseCurves> = p
+        .ellipses
+        .iter()
+        .filter(|e| e.1.iter().all(|v| v.is_finite()) && e.1[0] > 0.0 && e.1[2] > 0.0)
+        .map(|(l, cov, c)| {
+            (
+                l.clone(),
+                *c,
+                ellipse_points(*cov, d68, 720),
+                ellipse_points(*cov, d95, 720),
+            )
+        })
+        .collect();
+    let extent = |c: &EllipseCurves| -> (f64, f64) {
+        c.3.iter().fold((0.0, 0.0), |(x, y), q| {
+            (f64::max(x, q.0.abs()), f64::max(y, q.1.abs()))
+        })
+    };
+    let pad = |(x, y): (f64, f64)| -> (f64, f64) {
+        (
+            if x > 0.0 { x * 1.15 } else { 1.0 },
+            if y > 0.0 { y * 1.15 } else { 1.0 },
+        )
+    };
+    let full = curves
+        .iter()
+        .map(extent)
+        .fold((0.0, 0.0), |a, b| (f64::max(a.0, b.0), f64::max(a.1, b.1)));
+    // The smallest ellipse sets a zoom when the largest would shrink it to a dot.
+    let small = curves
+        .iter()
+        .map(extent)
+        .min_by(|a, b| (a.0 * a.1).total_cmp(&(b.0 * b.1)));
+    let zoom = small.filter(|s| s.0 < 0.3 * full.0 && s.1 < 0.3 * full.1);
+    let widest =
+        (0..curves.len()).max_by(|&a, &b| extent(&curves[a]).0.total_cmp(&extent(&curves[b]).0));
+    let titled = root
+        .titled(&p.title, (FAMILY, 32).into_font())
+        .map_err(draw_err)?;
+    let (panels, strip) = titled.split_vertically(titled.dim_in_pixel().1 - 80);
+    match zoom {
+        Some(z) => {
+            let (left, right) = panels.split_horizontally(SIZE.0 / 2);
+            ellipse_panel(&left, root, p, &curves, pad(full), "all probes", widest)?;
+            // In the zoom, the 68% and 95% labels go on the largest contour that fits.
+            let zext = pad(z);
+            let fits = (0..curves.len())
+                .filter(|&i| {
+                    let e = extent(&curves[i]);
+                    e.0 <= zext.0 && e.1 <= zext.1
+                })
+                .max_by(|&a, &b| extent(&curves[a]).0.total_cmp(&extent(&curves[b]).0));
+            let factor = (full.0 / z.0).min(full.1 / z.1);
+            ellipse_panel(
+                &right,
+                root,
+                p,
+                &curves,
+                zext,
+                &format!("zoom ×{}", crate::report::format_sig(factor, 2)),
+                fits,
+            )?;
+        }
+        None => ellipse_panel(&panels, root, p, &curves, pad(full), "", widest)?,
+    }
+    let grey = RGBColor(90, 90, 90);
+    let probes: Vec<(String, RGBColor, bool)> = curves
+        .iter()
+        .map(|c| (c.0.clone(), colour(c.1), false))
+        .collect();
+    let levels = vec![
+        (
+            format!("68% (Δχ² = {})", crate::report::format_sig(d68, 3)),
+            grey,
+            false,
+        ),
+        (
+            format!("95% (Δχ² = {})", crate::report::format_sig(d95, 3)),
+            grey,
+            true,
+        ),
+    ];
+    legend_strip(&strip, &[probes, levels])
 }
 
 #[cfg(test)]
@@ -1051,6 +1131,15 @@ mod tests {
         // Headroom puts the data under the legend.
         let y1 = headroom(1.0, 10.0, 10.0, 0.25, true);
         assert!(unit(10.0, 1.0, y1, true) <= 1.0 - 0.25);
+    }
+
+    #[test]
+    fn contours_are_clipped_to_the_panel() {
+        let pts = ellipse_points([100.0, 0.0, 1.0], 2.3, 720);
+        let runs = clip_runs(&pts, 5.0, 10.0);
+        assert!(runs.len() >= 2, "top and bottom arcs");
+        assert!(runs.iter().flatten().all(|q| q.0.abs() <= 5.0));
+        assert_eq!(clip_runs(&pts, 100.0, 100.0).len(), 1);
     }
 
     #[test]
