@@ -9,7 +9,7 @@ use crate::pipeline::{CmbResult, RunResult};
 use crate::report::figures::{Band, EllipsePlot, Figure, LinePlot, PlanePlot, Series, delta_chi2};
 use crate::report::format_sig;
 use crate::report::outputs::slug;
-use crate::report::table::{Cell, Column, Table};
+use crate::report::table::{Column, Table};
 use crate::survey::fisher::Probe;
 
 /// A table and, optionally, the figure drawn from it (same stem).
@@ -572,11 +572,6 @@ pub fn all(r: &RunResult) -> Vec<Artifact> {
     v.extend(per_bin(r));
     v.extend(crate::report::budget::budgets(r));
     v
-}
-
-/// A text cell for a label.
-pub fn text(s: &str) -> Cell {
-    Cell::Text(s.to_string())
 }
 
 #[cfg(test)]
