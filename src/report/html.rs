@@ -133,6 +133,12 @@ pub fn json_table(rows: &[Value], skip: &[&str]) -> String {
     s
 }
 
+/// A long table folded into a `<details>` element (open when short).
+fn folded(table: &str, rows: usize) -> String {
+    let open = if rows <= 24 { " open" } else { "" };
+    format!("<details{open}><summary>{rows} rows</summary>\n{table}</details>\n")
+}
+
 fn head(title: &str) -> String {
     format!(
         "<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\n<title>{}</title>\n<style>{STYLE}</style>\n<script>{SCRIPT}</script>\n</head>\n<body>\n",
@@ -207,30 +213,11 @@ pub fn run_page(
         esc(&sc.name),
         esc(crate::VERSION)
     ));
-    s.push_str("<nav><a href=\"#headline\">Headline</a><a href=\"#crossover\">Crossover</a><a href=\"#bins\">Per bin</a><a href=\"#information\">Information</a><a href=\"#figures\">Figures</a><a href=\"#inputs\">Inputs</a><a href=\"#methods\">Methods</a></nav>\n");
+    s.push_str("<nav><a href=\"#headline\">Headline</a><a href=\"#crossover\">Crossover</a><a href=\"#figures\">Figures</a><a href=\"#bins\">Per bin</a><a href=\"#information\">Information</a><a href=\"#inputs\">Inputs</a><a href=\"#methods\">Methods</a></nav>\n");
     s.push_str("<h2 id=\"headline\">Headline</h2>\n<p class=\"note\">Marginalized over the other shapes; CMB (T+E) at the largest l_max, surveys at the largest k_max; joint = CMB + survey Fisher matrices; improvement = best single probe / joint.</p>\n");
     s.push_str(&json_table(array(summary, "rows"), &[]));
     s.push_str("<h2 id=\"crossover\">Crossover</h2>\n<p class=\"note\">The k_max at which the survey's marginalized sigma falls below the CMB's (T+E at the experiment's l_max); null: not reached on the grid; below_grid: already below at the first grid point (a bound, not a found point).</p>\n");
     s.push_str(&json_table(array(summary, "crossover"), &[]));
-    s.push_str("<h2 id=\"bins\">Per redshift bin</h2>\n");
-    for sv in &r.surveys {
-        let rows: Vec<Value> = array(summary, "per_bin")
-            .iter()
-            .filter(|x| x["survey"] == Value::String(sv.survey.name.clone()))
-            .cloned()
-            .collect();
-        s.push_str(&format!("<h3>{}</h3>\n", esc(&sv.survey.name)));
-        s.push_str(&json_table(&rows, &["survey"]));
-    }
-    s.push_str("<h2 id=\"information\">Information budgets</h2>\n");
-    for t in array(summary, "information") {
-        s.push_str(&format!(
-            "<h3>{}</h3>\n<p class=\"note\">{}</p>\n",
-            esc(t["table"].as_str().unwrap_or("")),
-            esc(t["description"].as_str().unwrap_or(""))
-        ));
-        s.push_str(&json_table(array(t, "rows"), &[]));
-    }
     s.push_str("<h2 id=\"figures\">Figures</h2>\n");
     for (stem, svg) in svgs {
         let desc = artifacts
@@ -249,7 +236,27 @@ pub fn run_page(
             attr(&format!("{stem}.png"))
         ));
     }
-    s.push_str("<h2 id=\"inputs\">Resolved inputs</h2>\n<details open><summary>inputs (as in summary.json)</summary>\n<pre>");
+    s.push_str("<h2 id=\"bins\">Per redshift bin</h2>\n");
+    for sv in &r.surveys {
+        let rows: Vec<Value> = array(summary, "per_bin")
+            .iter()
+            .filter(|x| x["survey"] == Value::String(sv.survey.name.clone()))
+            .cloned()
+            .collect();
+        s.push_str(&format!("<h3>{}</h3>\n", esc(&sv.survey.name)));
+        s.push_str(&folded(&json_table(&rows, &["survey"]), rows.len()));
+    }
+    s.push_str("<h2 id=\"information\">Information budgets</h2>\n");
+    for t in array(summary, "information") {
+        s.push_str(&format!(
+            "<h3>{}</h3>\n<p class=\"note\">{}</p>\n",
+            esc(t["table"].as_str().unwrap_or("")),
+            esc(t["description"].as_str().unwrap_or(""))
+        ));
+        let rows = array(t, "rows");
+        s.push_str(&folded(&json_table(rows, &[]), rows.len()));
+    }
+    s.push_str("<h2 id=\"inputs\">Resolved inputs</h2>\n<details><summary>inputs (as in summary.json)</summary>\n<pre>");
     s.push_str(&esc(
         &serde_json::to_string_pretty(&summary["inputs"]).unwrap_or_default()
     ));
