@@ -2,8 +2,8 @@
 //! parallel, reuses the expensive CMB pieces between scenarios that share a cosmology
 //! and transfer model, writes one folder per scenario plus a combined table, resumes
 //! (skips scenarios whose `summary.json` exists; every file is written to a temporary
-//! name and renamed), and splits across array jobs (`--shard I/N`, merged afterwards by
-//! `ngreach merge`).
+//! name and renamed), and splits across array jobs (`--shard I/N`, or `--shard auto`
+//! inside a SLURM array job, merged afterwards by `ngreach merge`).
 //!
 //! ```toml
 //! [plan]
@@ -29,6 +29,7 @@ use toml::Spanned;
 
 use crate::error::{Error, Location, Result};
 use crate::input::{Source, parse_toml};
+use crate::report::table::{Cell, Column, Table, TableFormat};
 use crate::scenario::{
     DiskResolver, EmbeddedResolver, FileResolver, Scenario, resolve_scenario, set_path,
 };
@@ -89,15 +90,78 @@ pub struct Shard {
 }
 
 impl Shard {
-    /// Parses `I/N` with 0 <= I < N.
+    /// Parses `I/N` with 0 <= I < N, or `auto`: the shard of this task of a SLURM array
+    /// job, from the process environment (see [`Shard::from_array_job`]).
     ///
     /// # Errors
-    /// A malformed value.
+    /// A malformed value; `auto` outside an array job.
     pub fn parse(s: &str) -> Result<Self> {
+        if s.trim() == "auto" {
+            return Self::from_array_job(|k| std::env::var(k).ok());
+        }
+        Self::parse_index(s)
+    }
+
+    /// The shard of an array-job task: index (SLURM_ARRAY_TASK_ID - SLURM_ARRAY_TASK_MIN)
+    /// / step and count SLURM_ARRAY_TASK_COUNT, where the step is SLURM_ARRAY_TASK_STEP
+    /// (1 when unset). `var` looks a variable up (the process environment in
+    /// [`Shard::parse`]).
+    ///
+    /// # Errors
+    /// [`Error::BadField`] on `--shard` naming the missing or malformed variable.
+    pub fn from_array_job(var: impl Fn(&str) -> Option<String>) -> Result<Self> {
+        let bad = |message: String| Error::BadField {
+            at: Location::Flag("--shard".into()),
+            field: "shard".into(),
+            message,
+        };
+        let get = |k: &str| -> Result<usize> {
+            let v = var(k).ok_or_else(|| {
+                bad(format!(
+                    "`auto` takes the shard from the array-job variables SLURM_ARRAY_TASK_ID, SLURM_ARRAY_TASK_COUNT and SLURM_ARRAY_TASK_MIN, but {k} is not set: run inside an array job (sbatch --array=0-N) or give --shard I/N"
+                ))
+            })?;
+            v.trim()
+                .parse()
+                .map_err(|_| bad(format!("{k} = `{v}` is not a non-negative integer")))
+        };
+        let (id, count, min) = (
+            get("SLURM_ARRAY_TASK_ID")?,
+            get("SLURM_ARRAY_TASK_COUNT")?,
+            get("SLURM_ARRAY_TASK_MIN")?,
+        );
+        let step = match var("SLURM_ARRAY_TASK_STEP") {
+            Some(v) => v
+                .trim()
+                .parse::<usize>()
+                .ok()
+                .filter(|&s| s > 0)
+                .ok_or_else(|| {
+                    bad(format!(
+                        "SLURM_ARRAY_TASK_STEP = `{v}` is not a positive integer"
+                    ))
+                })?,
+            None => 1,
+        };
+        if id < min || (id - min) % step != 0 || (id - min) / step >= count || count == 0 {
+            return Err(bad(format!(
+                "array task {id} is not one of the {count} tasks from {min} in steps of {step}; an array like --array=0-{} gives one task per shard",
+                count.saturating_sub(1)
+            )));
+        }
+        Ok(Self {
+            index: (id - min) / step,
+            count,
+        })
+    }
+
+    fn parse_index(s: &str) -> Result<Self> {
         let bad = || Error::BadField {
             at: Location::Flag("--shard".into()),
             field: "shard".into(),
-            message: format!("`{s}` is not I/N with 0 <= I < N (for example 0/4)"),
+            message: format!(
+                "`{s}` is not I/N with 0 <= I < N (for example 0/4), nor `auto` (inside an array job)"
+            ),
         };
         let (a, b) = s.split_once('/').ok_or_else(bad)?;
         let (index, count): (usize, usize) = (
@@ -309,8 +373,8 @@ fn apply(doc: &mut toml::Table, path: &str, value: toml::Value) -> std::result::
     set_path(doc, path, value)
 }
 
-/// The row of the combined table for one finished scenario: the grid values and the
-/// headline numbers of its summary.
+/// The row of `batch_summary.json` for one finished scenario: the grid values, the
+/// headline rows, every (l_max, k_max) pair, and the crossovers of its summary.
 pub fn combined_row(point_values: &[(String, Value)], folder: &str, summary: &Value) -> Value {
     let mut row = serde_json::Map::new();
     row.insert("folder".into(), folder.into());
@@ -318,17 +382,24 @@ pub fn combined_row(point_values: &[(String, Value)], folder: &str, summary: &Va
         row.insert(p.clone(), v.clone());
     }
     row.insert("rows".into(), summary["rows"].clone());
+    row.insert("joint".into(), summary["joint"].clone());
     row.insert("crossover".into(), summary["crossover"].clone());
     Value::Object(row)
 }
 
-/// Writes the combined table (`batch_summary.json` and `batch_summary.csv`) from the
-/// scenario folders under `out` that hold a `summary.json` (a merge of shards reads the
-/// same files, so it produces the same table).
+/// The combined table's column for a plan path: `survey.0.area_deg2` ->
+/// `survey_0_area_deg2` (the unit stays in the name).
+pub fn grid_column(path: &str) -> String {
+    crate::report::table::identifier(path)
+}
+
+/// The combined table of finished scenario folders: one row per (scenario, experiment,
+/// survey, probe, shape, l_max, k_max), i.e. the whole grid each scenario computed, with
+/// each varied plan path in its own column.
 ///
 /// # Errors
-/// I/O errors.
-pub fn write_combined(out: &Path) -> Result<usize> {
+/// I/O and JSON errors reading the folders.
+fn combined_table(folders: &[PathBuf]) -> Result<(Table, Vec<Value>, Vec<String>)> {
     let io = |p: &Path| {
         let p = p.to_path_buf();
         move |source| Error::Io {
@@ -336,20 +407,9 @@ pub fn write_combined(out: &Path) -> Result<usize> {
             source,
         }
     };
-    let mut folders: Vec<PathBuf> = std::fs::read_dir(out)
-        .map_err(io(out))?
-        .filter_map(|e| e.ok().map(|e| e.path()))
-        .filter(|p| p.join("summary.json").is_file() && p.join("point.json").is_file())
-        .collect();
-    folders.sort();
-    let mut rows = Vec::new();
-    let mut csv = format!(
-        "# ngreach {} batch: one row per (scenario, experiment, survey, probe, shape) at the largest l_max and k_max\n",
-        crate::VERSION
-    );
-    csv.push_str("# sigma(f_NL) marginalized, CMB convention; k in h/Mpc\n");
-    csv.push_str("folder,grid,experiment,survey,probe,shape,lmax,kmax_h_mpc,sigma_cmb,sigma_survey,sigma_joint,improvement,crossover_kmax_h_mpc\n");
-    for f in &folders {
+    let mut loaded = Vec::new();
+    let mut paths: Vec<String> = Vec::new();
+    for f in folders {
         let read = |name: &str| -> Result<Value> {
             let p = f.join(name);
             let text = std::fs::read_to_string(&p).map_err(io(&p))?;
@@ -360,20 +420,65 @@ pub fn write_combined(out: &Path) -> Result<usize> {
         };
         let summary = read("summary.json")?;
         let point = read("point.json")?;
-        let folder = f
-            .file_name()
-            .map(|n| n.to_string_lossy().into_owned())
-            .unwrap_or_default();
         let vals: Vec<(String, Value)> = point["values"]
             .as_object()
             .map(|m| m.iter().map(|(k, v)| (k.clone(), v.clone())).collect())
             .unwrap_or_default();
-        let grid = vals
-            .iter()
-            .map(|(k, v)| format!("{k}={v}"))
-            .collect::<Vec<_>>()
-            .join(" ");
-        for r in summary["rows"].as_array().cloned().unwrap_or_default() {
+        for (k, _) in &vals {
+            if !paths.contains(k) {
+                paths.push(k.clone());
+            }
+        }
+        let folder = f
+            .file_name()
+            .map(|n| n.to_string_lossy().into_owned())
+            .unwrap_or_default();
+        loaded.push((folder, vals, summary));
+    }
+    let mut cols = vec![Column::new("folder", "scenario folder")];
+    for p in &paths {
+        cols.push(Column::new(
+            &grid_column(p),
+            &format!("plan value of `{p}`"),
+        ));
+    }
+    for (name, desc) in [
+        ("experiment", "CMB experiment"),
+        ("cmb_fields", "CMB field set"),
+        ("survey", "survey"),
+        ("probe", "survey probe"),
+        ("shape", "primordial shape"),
+        ("lmax", "CMB l_max"),
+        ("kmax_h_mpc", "survey k_max"),
+        ("sigma_cmb", "CMB sigma(f_NL) at this l_max, marginalized"),
+        (
+            "sigma_survey",
+            "survey sigma(f_NL) at this k_max, marginalized",
+        ),
+        ("sigma_joint", "joint sigma(f_NL), marginalized"),
+        ("improvement", "best single-probe sigma / joint sigma"),
+        (
+            "crossover_kmax_h_mpc",
+            "k_max where the survey beats the CMB at its largest l_max (empty: not reached)",
+        ),
+        (
+            "crossover_status",
+            "found, below_grid (a bound: at or below the value), or not_reached",
+        ),
+    ] {
+        cols.push(Column::new(name, desc));
+    }
+    let mut t = Table::new(
+        "batch_summary",
+        "one row per (scenario, experiment, survey, probe, shape, l_max, k_max): the whole grid",
+        cols,
+    );
+    t.notes
+        .push("sigma(f_NL) marginalized over the other shapes, CMB convention; k in h/Mpc".into());
+    let mut rows = Vec::new();
+    let mut names = Vec::new();
+    for (folder, vals, summary) in &loaded {
+        for r in summary["joint"].as_array().cloned().unwrap_or_default() {
             let cross = summary["crossover"].as_array().and_then(|a| {
                 a.iter()
                     .find(|c| {
@@ -384,47 +489,101 @@ pub fn write_combined(out: &Path) -> Result<usize> {
                     })
                     .cloned()
             });
-            let cell = |v: &Value| match v {
-                Value::Null => "inf".to_string(),
-                Value::String(s) => s.replace(',', ";"),
-                other => other.to_string(),
+            let mut row: Vec<Cell> = vec![folder.clone().into()];
+            for p in &paths {
+                row.push(
+                    vals.iter()
+                        .find(|(k, _)| k == p)
+                        .map_or(Cell::Float(f64::NAN), |(_, v)| Cell::from_json(v)),
+                );
+            }
+            for k in [
+                "experiment",
+                "cmb_fields",
+                "survey",
+                "probe",
+                "shape",
+                "lmax",
+                "kmax_h_mpc",
+            ] {
+                row.push(Cell::from_json(&r[k]));
+            }
+            for k in ["sigma_cmb", "sigma_survey", "sigma_marginal"] {
+                row.push(match &r[k] {
+                    Value::Null => Cell::Float(f64::INFINITY),
+                    v => Cell::from_json(v),
+                });
+            }
+            row.push(Cell::from_json(&r["improvement"]));
+            let (k, status) = match &cross {
+                Some(c) => match (&c["kmax_h_mpc"], c["below_grid"].as_bool()) {
+                    (Value::Null, _) => (Cell::Float(f64::NAN), "not_reached"),
+                    (v, Some(true)) => (Cell::from_json(v), "below_grid"),
+                    (v, _) => (Cell::from_json(v), "found"),
+                },
+                None => (Cell::Float(f64::NAN), ""),
             };
-            csv.push_str(&format!(
-                "{folder},{},{},{},{},{},{},{},{},{},{},{},{}\n",
-                grid.replace(',', ";"),
-                cell(&r["experiment"]),
-                cell(&r["survey"]),
-                cell(&r["probe"]),
-                cell(&r["shape"]),
-                cell(&r["lmax"]),
-                cell(&r["kmax_h_mpc"]),
-                cell(&r["sigma_cmb"]),
-                cell(&r["sigma_survey"]),
-                cell(&r["sigma_joint"]),
-                cell(&r["improvement"]),
-                cross.map_or("".into(), |c| match &c["kmax_h_mpc"] {
-                    Value::Null => "not reached".into(),
-                    v => v.to_string(),
-                }),
-            ));
+            row.push(k);
+            row.push(status.into());
+            t.push(row);
         }
-        rows.push(combined_row(&vals, &folder, &summary));
+        rows.push(combined_row(vals, folder, summary));
+        names.push(folder.clone());
     }
+    Ok((t, rows, names))
+}
+
+/// Writes the combined table (`batch_summary.json`, `batch_summary.csv` or `.ecsv`) and
+/// the batch's `report.html` from the scenario folders under `out` that hold a
+/// `summary.json` (a merge of shards reads the same files, so it produces the same
+/// table). Returns the number of scenarios.
+///
+/// # Errors
+/// I/O errors.
+pub fn write_combined(out: &Path, format: TableFormat) -> Result<usize> {
+    let mut folders: Vec<PathBuf> = std::fs::read_dir(out)
+        .map_err(|source| Error::Io {
+            path: out.to_path_buf(),
+            source,
+        })?
+        .filter_map(|e| e.ok().map(|e| e.path()))
+        .filter(|p| p.join("summary.json").is_file() && p.join("point.json").is_file())
+        .collect();
+    folders.sort();
+    let (t, rows, names) = combined_table(&folders)?;
     let n = rows.len();
+    let prov =
+        json!({"generator": format!("ngreach {}", crate::VERSION), "version": crate::VERSION});
+    crate::report::write_atomic(
+        &out.join(t.file_name(format)),
+        t.render(format, &prov).as_bytes(),
+    )?;
     let all = json!({"version": crate::VERSION, "scenarios": rows});
     crate::report::write_atomic(
         &out.join("batch_summary.json"),
         (serde_json::to_string_pretty(&all).unwrap_or_default() + "\n").as_bytes(),
     )?;
-    crate::report::write_atomic(&out.join("batch_summary.csv"), csv.as_bytes())?;
+    let page =
+        crate::report::html::batch_page(&out.display().to_string(), &t.to_json_rows(), &names);
+    crate::report::write_atomic(&out.join("report.html"), page.as_bytes())?;
     Ok(n)
+}
+
+/// The table format a finished scenario folder was written in (from its `point.json`;
+/// CSV when not recorded).
+pub fn folder_table_format(dir: &Path) -> TableFormat {
+    std::fs::read_to_string(dir.join("point.json"))
+        .ok()
+        .and_then(|t| serde_json::from_str::<Value>(&t).ok())
+        .and_then(|v| serde_json::from_value(v["tables"].clone()).ok())
+        .unwrap_or_default()
 }
 
 /// Writes `point.json` for a grid point (its values), before the scenario runs.
 ///
 /// # Errors
 /// I/O errors.
-pub fn write_point(dir: &Path, p: &PlanPoint) -> Result<()> {
+pub fn write_point(dir: &Path, p: &PlanPoint, tables: TableFormat) -> Result<()> {
     std::fs::create_dir_all(dir).map_err(|source| Error::Io {
         path: dir.to_path_buf(),
         source,
@@ -433,7 +592,8 @@ pub fn write_point(dir: &Path, p: &PlanPoint) -> Result<()> {
     for (k, v) in &p.values {
         vals.insert(k.clone(), serde_json::to_value(v).unwrap_or(Value::Null));
     }
-    let j = json!({"index": p.index, "grid_size": p.grid_size, "folder": p.folder, "scenario": p.scenario.name, "values": vals});
+    let j = json!({"index": p.index, "grid_size": p.grid_size, "folder": p.folder, "scenario": p.scenario.name,
+        "values": vals, "tables": tables});
     crate::report::write_atomic(
         &dir.join("point.json"),
         (serde_json::to_string_pretty(&j).unwrap_or_default() + "\n").as_bytes(),
@@ -486,6 +646,41 @@ mod tests {
                 && Shard::parse("x").is_err()
                 && Shard::parse("0/0").is_err()
         );
+    }
+
+    #[test]
+    fn shard_from_array_job_variables() {
+        let env = |pairs: &'static [(&'static str, &'static str)]| {
+            move |k: &str| pairs.iter().find(|p| p.0 == k).map(|p| p.1.to_string())
+        };
+        let s = Shard::from_array_job(env(&[
+            ("SLURM_ARRAY_TASK_ID", "3"),
+            ("SLURM_ARRAY_TASK_COUNT", "4"),
+            ("SLURM_ARRAY_TASK_MIN", "1"),
+        ]))
+        .unwrap();
+        assert_eq!(s, Shard { index: 2, count: 4 });
+        let s = Shard::from_array_job(env(&[
+            ("SLURM_ARRAY_TASK_ID", "4"),
+            ("SLURM_ARRAY_TASK_COUNT", "3"),
+            ("SLURM_ARRAY_TASK_MIN", "0"),
+            ("SLURM_ARRAY_TASK_STEP", "2"),
+        ]))
+        .unwrap();
+        assert_eq!(s, Shard { index: 2, count: 3 });
+        let e = Shard::from_array_job(env(&[("SLURM_ARRAY_TASK_ID", "0")])).unwrap_err();
+        assert!(
+            e.to_string().contains("SLURM_ARRAY_TASK_COUNT is not set"),
+            "{e}"
+        );
+        let e = Shard::from_array_job(env(&[
+            ("SLURM_ARRAY_TASK_ID", "7"),
+            ("SLURM_ARRAY_TASK_COUNT", "4"),
+            ("SLURM_ARRAY_TASK_MIN", "0"),
+        ]))
+        .unwrap_err();
+        assert!(e.to_string().contains("--shard"), "{e}");
+        assert_eq!(grid_column("survey.0.area_deg2"), "survey_0_area_deg2");
     }
 
     #[test]

@@ -5,7 +5,8 @@ use std::path::PathBuf;
 
 use clap::{Args, Parser, Subcommand};
 
-use crate::report::Format;
+use crate::report::table::TableFormat;
+use crate::report::{Format, SummaryFormat};
 
 /// Forecasts of primordial non-Gaussianity from CMB bispectra and 3D galaxy surveys.
 ///
@@ -82,9 +83,14 @@ pub struct BatchArgs {
     /// Folder for the scenario folders and the combined table.
     #[arg(long, value_name = "DIR", default_value = "ngreach-batch")]
     pub out: PathBuf,
-    /// Run only shard I of N (0-based), e.g. for array job I of a cluster scheduler.
-    #[arg(long, value_name = "I/N")]
+    /// Run only shard I of N (0-based), or `auto`: the shard of this task of a SLURM
+    /// array job (from SLURM_ARRAY_TASK_ID, SLURM_ARRAY_TASK_COUNT, SLURM_ARRAY_TASK_MIN).
+    #[arg(long, value_name = "I/N|auto")]
     pub shard: Option<String>,
+    /// File format of every table: csv (one header row; descriptions and units in
+    /// tables.json) or ecsv (astropy's ECSV: units and provenance in the header).
+    #[arg(long, value_enum, default_value_t = TableFormat::Csv)]
+    pub tables: TableFormat,
     /// Worker threads (at most 4 per core).
     #[arg(long, value_name = "N")]
     pub threads: Option<usize>,
@@ -102,6 +108,10 @@ pub struct MergeArgs {
     /// Shard output folders to merge into OUT (none: rebuild OUT's combined table).
     #[arg(value_name = "SHARD_DIR")]
     pub parts: Vec<PathBuf>,
+    /// Fail (exit 2) unless OUT then holds all N scenarios of the plan's grid, naming
+    /// the missing grid points.
+    #[arg(long, value_name = "N")]
+    pub expect: Option<usize>,
 }
 
 /// `ngreach check`.
@@ -127,9 +137,16 @@ pub struct RunArgs {
     /// Override the scenario's cosmology with a [cosmology] file.
     #[arg(long, value_name = "FILE")]
     pub cosmology: Option<PathBuf>,
-    /// Format of the terminal summary: table (default) or json (the summary.json object).
-    #[arg(long, value_enum, default_value_t = Format::Table)]
-    pub format: Format,
+    /// Format of the terminal summary: table (the text summary) or json (the
+    /// summary.json object).
+    #[arg(long, value_enum, default_value_t = SummaryFormat::Table)]
+    pub format: SummaryFormat,
+    /// File format of every table written to DIR: csv (one header row; descriptions and
+    /// units in tables.json) or ecsv (astropy's ECSV: units and provenance in the
+    /// header). Always written as well: summary.json, report.html, fisher/*.npy,
+    /// table.tex, figures as PNG and SVG.
+    #[arg(long, value_enum, default_value_t = TableFormat::Csv)]
+    pub tables: TableFormat,
     /// Transfer-table cache.
     #[command(flatten)]
     pub cache: CacheArgs,

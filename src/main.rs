@@ -307,7 +307,11 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                 progress,
                 ..Default::default()
             };
-            let r = commands::batch::run_batch(&plan, &a.out, shard, &settings)?;
+            let outputs = ngreach::report::outputs::OutputOptions {
+                tables: a.tables,
+                report: true,
+            };
+            let r = commands::batch::run_batch(&plan, &a.out, shard, &settings, &outputs)?;
             Ok(format!(
                 "batch `{}`: {} scenario(s) computed, {} already complete (skipped), {} left to other shards; combined table of {} scenario(s) in {}/batch_summary.csv\n",
                 plan.name,
@@ -319,7 +323,7 @@ fn run(cli: Cli) -> ngreach::Result<String> {
             ))
         }
         Command::Merge(a) => {
-            let n = commands::batch::merge(&a.out, &a.parts)?;
+            let n = commands::merge::merge_expecting(&a.out, &a.parts, a.expect)?;
             if n == 0 {
                 return Err(Error::BadField {
                     at: Location::WholeFile(a.out.clone()),
@@ -363,12 +367,16 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                 progress,
                 ..Default::default()
             };
-            let (text, result) = commands::run::run_to_dir(&sc, &a.out, &settings)?;
+            let outputs = ngreach::report::outputs::OutputOptions {
+                tables: a.tables,
+                report: true,
+            };
+            let (text, result) = commands::run::run_to_dir_with(&sc, &a.out, &settings, &outputs)?;
             if !warnings.is_empty() {
                 add_warnings_to_summary(&a.out.join("summary.json"), &warnings)?;
             }
             Ok(match a.format {
-                ngreach::report::Format::Json => {
+                ngreach::report::SummaryFormat::Json => {
                     let mut j = ngreach::report::outputs::summary_json(&result);
                     if let serde_json::Value::Object(m) = &mut j {
                         m.insert("warnings".into(), warnings.clone().into());

@@ -41,12 +41,19 @@ fn background_csv_and_table() {
     let o = run(&["background", "--format", "csv", "--z", "0.5"]);
     assert!(o.status.success());
     let s = stdout(&o);
-    let header = s.lines().find(|l| !l.starts_with('#')).unwrap();
+    // CSV: the header row first (NumPy and pandas read it without options).
+    let header = s.lines().next().unwrap();
     assert!(
         header.starts_with("z,hubble_km_s_mpc,comoving_distance_mpc"),
         "{header}"
     );
-    assert!(s.lines().next().unwrap().starts_with("# ngreach"));
+    // ECSV: the same columns with units and the notes in the header.
+    let o = run(&["background", "--format", "ecsv", "--z", "0.5"]);
+    let e = stdout(&o);
+    assert!(
+        e.starts_with("# %ECSV 1.0") && e.contains("\"unit\":\"Mpc\""),
+        "{e}"
+    );
     let o = run(&["background", "--z", "0.5"]);
     assert!(stdout(&o).contains("Mpc"));
 }

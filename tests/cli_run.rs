@@ -291,11 +291,119 @@ fn batch_resumes_and_shards_merge_to_the_unsharded_table() {
     let t_full = std::fs::read_to_string(full.join("batch_summary.csv")).unwrap();
     let t_merged = std::fs::read_to_string(merged.join("batch_summary.csv")).unwrap();
     assert_eq!(t_full, t_merged);
-    assert!(
-        t_full.lines().count() > 4 && t_full.contains("area_deg2=2000"),
-        "{t_full}"
-    );
+    // One header row; the varied values in their own columns; the whole grid: 4
+    // scenarios x 1 experiment x 1 survey x 3 probes x 2 shapes x 3 l_max x 3 k_max.
+    let lines: Vec<&str> = t_full.lines().collect();
+    let header: Vec<&str> = lines[0].split(',').collect();
+    for col in [
+        "folder",
+        "survey_0_area_deg2",
+        "survey_0_tracer_0_nbar_h3_mpc3",
+        "lmax",
+        "kmax_h_mpc",
+        "sigma_joint",
+        "crossover_status",
+    ] {
+        assert!(header.contains(&col), "no column {col}: {header:?}");
+    }
+    assert_eq!(lines.len() - 1, 4 * 3 * 2 * 3 * 3, "{t_full}");
+    let at = |c: &str| header.iter().position(|h| *h == c).unwrap();
+    let (ia, il, ik) = (at("survey_0_area_deg2"), at("lmax"), at("kmax_h_mpc"));
+    let mut areas = std::collections::BTreeSet::new();
+    let mut grid = std::collections::BTreeSet::new();
+    for l in &lines[1..] {
+        let cells: Vec<&str> = l.split(',').collect();
+        assert_eq!(cells.len(), header.len(), "{l}");
+        areas.insert(cells[ia].to_string());
+        grid.insert((cells[il].to_string(), cells[ik].to_string()));
+    }
+    assert_eq!(areas.into_iter().collect::<Vec<_>>(), ["2000.0", "8000.0"]);
+    assert_eq!(grid.len(), 9, "every (l_max, k_max) pair: {grid:?}");
+    assert!(full.join("report.html").is_file());
     for d in [full, s0, s1, merged] {
+        std::fs::remove_dir_all(&d).ok();
+    }
+}
+
+/// `--shard auto` inside a SLURM-style array job (2 tasks, ids 1 and 2), then
+/// `merge --expect 4`: complete after both tasks, a clear failure with one missing.
+#[test]
+fn array_job_shards_and_merge_expect() {
+    let (t1, t2, merged, partial) = (
+        tmp("aj-1"),
+        tmp("aj-2"),
+        tmp("aj-merged"),
+        tmp("aj-partial"),
+    );
+    for (id, dir) in [("1", &t1), ("2", &t2)] {
+        let o = Command::new(bin())
+            .args([
+                "batch",
+                "tests/data/plan_small.toml",
+                "--out",
+                dir.to_str().unwrap(),
+                "--shard",
+                "auto",
+            ])
+            .env("SLURM_ARRAY_TASK_ID", id)
+            .env("SLURM_ARRAY_TASK_COUNT", "2")
+            .env("SLURM_ARRAY_TASK_MIN", "1")
+            .current_dir(root())
+            .output()
+            .unwrap();
+        assert!(o.status.success(), "{}", stderr(&o));
+        assert!(
+            stdout(&o).contains("2 scenario(s) computed") && stdout(&o).contains("2 left"),
+            "{}",
+            stdout(&o)
+        );
+    }
+    let o = run(&[
+        "merge",
+        partial.to_str().unwrap(),
+        t1.to_str().unwrap(),
+        "--expect",
+        "4",
+    ]);
+    assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
+    assert!(
+        stderr(&o).contains("--expect") && stderr(&o).contains("missing grid point(s) 1, 3"),
+        "{}",
+        stderr(&o)
+    );
+    let o = run(&[
+        "merge",
+        merged.to_str().unwrap(),
+        t1.to_str().unwrap(),
+        t2.to_str().unwrap(),
+        "--expect",
+        "4",
+    ]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert!(
+        stdout(&o).contains("combined table of 4 scenario(s)"),
+        "{}",
+        stdout(&o)
+    );
+    // Outside an array job, `auto` names the variables it needs.
+    let o = Command::new(bin())
+        .args([
+            "batch",
+            "tests/data/plan_small.toml",
+            "--out",
+            t1.to_str().unwrap(),
+            "--shard",
+            "auto",
+        ])
+        .env_remove("SLURM_ARRAY_TASK_ID")
+        .env_remove("SLURM_ARRAY_TASK_COUNT")
+        .env_remove("SLURM_ARRAY_TASK_MIN")
+        .current_dir(root())
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(2));
+    assert!(stderr(&o).contains("SLURM_ARRAY_TASK_ID"), "{}", stderr(&o));
+    for d in [t1, t2, merged, partial] {
         std::fs::remove_dir_all(&d).ok();
     }
 }

@@ -25,21 +25,27 @@ fn csv_header_units_and_rows() {
     assert!(o.status.success(), "{}", stderr(&o));
     let s = stdout(&o);
     let lines: Vec<&str> = s.lines().collect();
-    assert!(lines[0].starts_with("# ngreach"), "{}", lines[0]);
-    let comments: Vec<&str> = lines
-        .iter()
-        .copied()
-        .take_while(|l| l.starts_with('#'))
-        .collect();
-    assert!(
-        comments
-            .iter()
-            .any(|l| l.contains("microkelvin^2") && l.contains("unlensed") && l.contains("T_CMB")),
-        "units comment missing: {comments:?}"
-    );
-    let header = lines[comments.len()];
+    // One header row, then the data; the units and conventions are in the ECSV header.
+    let header = lines[0];
     assert_eq!(header, "ell,dl_tt_uk2,dl_ee_uk2,dl_te_uk2");
-    let rows = &lines[comments.len() + 1..];
+    let e = run(&[
+        "spectra",
+        "--transfer",
+        "shell",
+        "--lmax",
+        "300",
+        "--format",
+        "ecsv",
+    ]);
+    let e = stdout(&e);
+    assert!(
+        e.lines()
+            .take_while(|l| l.starts_with('#'))
+            .any(|l| l.contains("microkelvin^2") && l.contains("unlensed") && l.contains("T_CMB")),
+        "units note missing from the ECSV header"
+    );
+    assert!(e.contains("\"unit\":\"uK2\""));
+    let rows = &lines[1..];
     assert_eq!(rows.len(), 299);
     let first: Vec<&str> = rows[0].split(',').collect();
     assert_eq!(first[0], "2");

@@ -1,13 +1,15 @@
-//! `ngreach batch` and `ngreach merge`.
+//! `ngreach batch`.
 
-use std::path::{Path, PathBuf};
+use std::path::Path;
 
 use rayon::prelude::*;
 
 use crate::batch::{Plan, Shard, write_combined, write_point};
 use crate::error::{Error, Result};
 use crate::pipeline::{CmbCache, RunSettings, run_scenario_cached};
-use crate::report::outputs::write_outputs;
+use crate::report::outputs::{OutputOptions, write_outputs_with};
+
+pub use crate::commands::merge::merge;
 
 /// What a batch run did.
 #[derive(Debug, Clone, Default, PartialEq, Eq)]
@@ -31,6 +33,7 @@ pub fn run_batch(
     out: &Path,
     shard: Option<Shard>,
     settings: &RunSettings,
+    outputs: &OutputOptions,
 ) -> Result<BatchReport> {
     std::fs::create_dir_all(out).map_err(|source| Error::Io {
         path: out.to_path_buf(),
@@ -59,9 +62,9 @@ pub fn run_batch(
                 settings.progress.inc(1);
                 return Ok((p.folder.clone(), false));
             }
-            write_point(&dir, p)?;
+            write_point(&dir, p, outputs.tables)?;
             let r = run_scenario_cached(&p.scenario, &inner, &cache, &mut |_| {})?;
-            write_outputs(&r, &dir)?;
+            write_outputs_with(&r, &dir, outputs)?;
             settings.progress.inc(1);
             Ok((p.folder.clone(), true))
         })
@@ -86,79 +89,6 @@ pub fn run_batch(
     if let Some(e) = first_err {
         return Err(e);
     }
-    report.combined = write_combined(out)?;
+    report.combined = write_combined(out, outputs.tables)?;
     Ok(report)
-}
-
-/// Merges shard outputs: copies the scenario folders of `parts` into `out` (those not
-/// already complete there) and rebuilds the combined table.
-///
-/// # Errors
-/// I/O errors.
-pub fn merge(out: &Path, parts: &[PathBuf]) -> Result<usize> {
-    if parts.is_empty() && !out.is_dir() {
-        return Err(Error::BadField {
-            at: crate::error::Location::WholeFile(out.to_path_buf()),
-            field: "OUT".into(),
-            message: "no such folder to rebuild; give shard folders to merge into it".into(),
-        });
-    }
-    std::fs::create_dir_all(out).map_err(|source| Error::Io {
-        path: out.to_path_buf(),
-        source,
-    })?;
-    for part in parts {
-        if !part.is_dir() {
-            return Err(Error::BadField {
-                at: crate::error::Location::WholeFile(part.clone()),
-                field: "SHARD_DIR".into(),
-                message: "not a folder: give the --out folders of the shard runs".into(),
-            });
-        }
-        let entries = std::fs::read_dir(part).map_err(|source| Error::Io {
-            path: part.clone(),
-            source,
-        })?;
-        for e in entries.flatten() {
-            let src = e.path();
-            if !(src.join("summary.json").is_file() && src.join("point.json").is_file()) {
-                continue;
-            }
-            let dst = out.join(e.file_name());
-            if dst.join("summary.json").is_file() {
-                continue;
-            }
-            copy_dir(&src, &dst)?;
-        }
-    }
-    write_combined(out)
-}
-
-fn copy_dir(src: &Path, dst: &Path) -> Result<()> {
-    let io = |p: &Path| {
-        let p = p.to_path_buf();
-        move |source| Error::Io {
-            path: p.clone(),
-            source,
-        }
-    };
-    std::fs::create_dir_all(dst).map_err(io(dst))?;
-    let mut names: Vec<_> = std::fs::read_dir(src)
-        .map_err(io(src))?
-        .flatten()
-        .map(|e| e.path())
-        .collect();
-    // summary.json last, so an interrupted merge leaves the folder incomplete.
-    names.sort_by_key(|p| p.file_name().is_some_and(|n| n == "summary.json"));
-    for p in names {
-        if p.is_file() {
-            let name = p
-                .file_name()
-                .map(|n| n.to_string_lossy().into_owned())
-                .unwrap_or_default();
-            let bytes = std::fs::read(&p).map_err(io(&p))?;
-            crate::report::write_atomic(&dst.join(name), &bytes)?;
-        }
-    }
-    Ok(())
 }

@@ -4,6 +4,7 @@ pub mod background;
 pub mod batch;
 pub mod check;
 pub mod cmb;
+pub mod merge;
 pub mod run;
 pub mod spectra;
 pub mod survey;

@@ -18,6 +18,11 @@ use plotters::style::FontStyle;
 
 use crate::error::{Error, Result};
 
+mod ellipses;
+mod plane;
+
+pub use ellipses::{delta_chi2, ellipse_points};
+
 const FONT: &[u8] = include_bytes!("../../assets/fonts/DejaVuSans.ttf");
 const FAMILY: &str = "ngreach-sans";
 
@@ -126,8 +131,12 @@ fn draw_err<E: std::fmt::Display>(e: E) -> Error {
 
 type Area<'a, DB> = DrawingArea<DB, Shift>;
 
-/// The legend box every figure uses: upper right, translucent white, thin grey border.
-fn draw_legend<'a, DB, CT>(chart: &mut ChartContext<'a, DB, CT>) -> Result<()>
+/// The legend box every figure uses: translucent white, thin grey border, at `pos`
+/// (chosen from the data by [`legend_corner`] so it covers none of it).
+fn draw_legend<'a, DB, CT>(
+    chart: &mut ChartContext<'a, DB, CT>,
+    pos: SeriesLabelPosition,
+) -> Result<()>
 where
     DB: DrawingBackend + 'a,
     DB::ErrorType: 'static,
@@ -135,12 +144,86 @@ where
 {
     chart
         .configure_series_labels()
-        .label_font((FAMILY, 24).into_font())
-        .background_style(WHITE.mix(0.85))
+        .label_font((FAMILY, LEGEND_FONT).into_font())
+        .legend_area_size(42)
+        .background_style(WHITE.mix(0.9))
         .border_style(RGBColor(180, 180, 180))
-        .position(SeriesLabelPosition::UpperRight)
+        .position(pos)
         .draw()
         .map_err(draw_err)
+}
+
+const LEGEND_FONT: u32 = 24;
+
+/// The legend's size as fractions of the plotting area (width, height), estimated from
+/// the labels (DejaVu Sans averages about 0.6 em per character).
+fn legend_fraction(labels: &[String], plot_px: (f64, f64)) -> (f64, f64) {
+    let chars = labels.iter().map(|l| l.chars().count()).max().unwrap_or(0) as f64;
+    let w = 42.0 + 20.0 + 10.0 + chars * 0.6 * LEGEND_FONT as f64;
+    let h = 20.0 + labels.len() as f64 * (LEGEND_FONT as f64 * 1.25);
+    (w / plot_px.0.max(1.0), h / plot_px.1.max(1.0))
+}
+
+/// The first corner (upper right, upper left, lower right, lower left) whose legend box
+/// holds none of the data samples (coordinates normalized to [0, 1] over the axes), or
+/// None when every corner is taken.
+fn legend_corner(samples: &[(f64, f64)], w: f64, h: f64) -> Option<SeriesLabelPosition> {
+    let m = 0.02;
+    let corners = [
+        (SeriesLabelPosition::UpperRight, 1.0 - w - m, 1.0 - h - m),
+        (SeriesLabelPosition::UpperLeft, 0.0, 1.0 - h - m),
+        (SeriesLabelPosition::LowerRight, 1.0 - w - m, 0.0),
+        (SeriesLabelPosition::LowerLeft, 0.0, 0.0),
+    ];
+    corners.into_iter().find_map(|(pos, x0, y0)| {
+        let free = !samples
+            .iter()
+            .any(|&(x, y)| x >= x0 && x <= x0 + w + m && y >= y0 && y <= y0 + h + m);
+        (free && w < 1.0 && h < 1.0).then_some(pos)
+    })
+}
+
+/// Maps a value to [0, 1] over an axis range.
+fn unit(v: f64, lo: f64, hi: f64, log: bool) -> f64 {
+    if log {
+        (v.ln() - lo.ln()) / (hi.ln() - lo.ln())
+    } else {
+        (v - lo) / (hi - lo)
+    }
+}
+
+/// The inverse of [`unit`].
+fn from_unit(t: f64, lo: f64, hi: f64, log: bool) -> f64 {
+    if log {
+        (lo.ln() + t * (hi.ln() - lo.ln())).exp()
+    } else {
+        lo + t * (hi - lo)
+    }
+}
+
+/// Samples along polylines (normalized coordinates), dense enough to find a legend box
+/// that a line crosses.
+fn sample_polyline(pts: &[(f64, f64)], out: &mut Vec<(f64, f64)>) {
+    if pts.len() == 1 {
+        out.push(pts[0]);
+    }
+    for w in pts.windows(2) {
+        for i in 0..=40 {
+            let t = i as f64 / 40.0;
+            out.push((
+                w[0].0 + t * (w[1].0 - w[0].0),
+                w[0].1 + t * (w[1].1 - w[0].1),
+            ));
+        }
+    }
+}
+
+/// Raises the top of an axis range so that everything at or below `top_data` sits under
+/// a legend of height `h` (fraction) in an upper corner.
+fn headroom(lo: f64, hi: f64, top_data: f64, h: f64, log: bool) -> f64 {
+    let frac = (1.0 - h - 0.04).max(0.3);
+    let t = unit(top_data, lo, hi, log).max(0.0);
+    from_unit(t / frac, lo, hi, log).max(hi)
 }
 
 /// Tick label: compact numbers (log axes carry their own key points, [`log_keys`]).
@@ -186,10 +269,24 @@ fn log_keys(a: f64, b: f64) -> Vec<f64> {
     pick(&[1.0, 2.0, 3.0, 4.0, 5.0, 6.0, 7.0, 8.0, 9.0])
 }
 
+/// The points of a series that an axis pair can show.
+fn drawable(s: &Series, log_x: bool, log_y: bool) -> Vec<(f64, f64)> {
+    s.points
+        .iter()
+        .copied()
+        .filter(|q| {
+            q.0.is_finite() && q.1.is_finite() && (!log_x || q.0 > 0.0) && (!log_y || q.1 > 0.0)
+        })
+        .collect()
+}
+
+/// Draws a line plot. `steps`: the series are staircases (pairs of bin edges), drawn
+/// without point markers.
 fn draw_lines<DB: DrawingBackend>(
     area: &Area<'_, DB>,
     p: &LinePlot,
     x_override: Option<(f64, f64)>,
+    steps: bool,
 ) -> Result<()>
 where
     DB::ErrorType: 'static,
@@ -203,7 +300,59 @@ where
     let (x0, x1) = x_override
         .or_else(|| finite_range(xs, p.log_x))
         .unwrap_or((1.0, 10.0));
-    let (y0, y1) = finite_range(ys, p.log_y).unwrap_or((1.0, 10.0));
+    let (y0, mut y1) = finite_range(ys, p.log_y).unwrap_or((1.0, 10.0));
+    // The legend goes into a corner the data leave empty; when none is, the y range
+    // grows upward until the upper corners are.
+    let labels: Vec<String> = p
+        .bands
+        .iter()
+        .map(|b| b.label.clone())
+        .chain(
+            p.series
+                .iter()
+                .filter(|s| !drawable(s, p.log_x, p.log_y).is_empty())
+                .map(|s| s.label.clone()),
+        )
+        .collect();
+    let (w_px, h_px) = area.dim_in_pixel();
+    let title_px = if p.title.is_empty() { 0.0 } else { 50.0 };
+    let plot_px = (w_px as f64 - 160.0, h_px as f64 - 120.0 - title_px);
+    let (lw, lh) = legend_fraction(&labels, plot_px);
+    let samples = |y1: f64| -> Vec<(f64, f64)> {
+        let mut v = Vec::new();
+        for s in &p.series {
+            let pts: Vec<(f64, f64)> = drawable(s, p.log_x, p.log_y)
+                .into_iter()
+                .map(|q| (unit(q.0, x0, x1, p.log_x), unit(q.1, y0, y1, p.log_y)))
+                .collect();
+            sample_polyline(&pts, &mut v);
+        }
+        for b in &p.bands {
+            for i in 0..=40 {
+                let x = i as f64 / 40.0;
+                for j in 0..=8 {
+                    let y = b.lo + (b.hi - b.lo) * j as f64 / 8.0;
+                    if y.is_finite() && (!p.log_y || y > 0.0) {
+                        v.push((x, unit(y, y0, y1, p.log_y)));
+                    }
+                }
+            }
+        }
+        v
+    };
+    let pos = match legend_corner(&samples(y1), lw, lh) {
+        Some(pos) => pos,
+        None => {
+            let top = p
+                .series
+                .iter()
+                .flat_map(|s| drawable(s, p.log_x, p.log_y).into_iter().map(|q| q.1))
+                .chain(p.bands.iter().map(|b| b.hi).filter(|v| v.is_finite()))
+                .fold(y0, f64::max);
+            y1 = headroom(y0, y1, top, lh, p.log_y);
+            legend_corner(&samples(y1), lw, lh).unwrap_or(SeriesLabelPosition::UpperRight)
+        }
+    };
     let font = |sz: u32| (FAMILY, sz).into_font();
     let mut b = ChartBuilder::on(area);
     b.margin(20)
@@ -227,45 +376,64 @@ where
                 .bold_line_style(RGBColor(215, 215, 215))
                 .draw()
                 .map_err(draw_err)?;
-            for band in &p.bands {
+            for (ib, band) in p.bands.iter().enumerate() {
+                // Outlined bands: a light fill plus both edges in the band's colour, solid
+                // for even bands and dashed for odd ones, so overlapping bands stay
+                // distinguishable.
                 let c = colour(band.colour);
+                let dashed = ib % 2 == 1;
+                let edge = c.stroke_width(3);
                 if band.hi > band.lo {
                     chart
                         .draw_series(std::iter::once(Rectangle::new(
                             [(x0, band.lo), (x1, band.hi)],
-                            c.mix(0.18).filled(),
+                            c.mix(0.10).filled(),
                         )))
-                        .map_err(draw_err)?
-                        .label(&band.label)
-                        .legend(move |(x, y)| {
-                            Rectangle::new([(x, y - 8), (x + 30, y + 8)], c.mix(0.35).filled())
-                        });
+                        .map_err(draw_err)?;
+                }
+                let edges: Vec<f64> = if band.hi > band.lo {
+                    vec![band.lo, band.hi]
                 } else {
-                    chart
-                        .draw_series(LineSeries::new(
-                            [(x0, band.lo), (x1, band.lo)],
-                            c.stroke_width(3),
-                        ))
-                        .map_err(draw_err)?
-                        .label(&band.label)
-                        .legend(move |(x, y)| {
-                            PathElement::new([(x, y), (x + 30, y)], c.stroke_width(3))
+                    vec![band.lo]
+                };
+                for (ie, &y) in edges.iter().enumerate() {
+                    let line = [(x0, y), (x1, y)];
+                    let anno = if dashed {
+                        chart
+                            .draw_series(DashedLineSeries::new(line, 18, 10, edge))
+                            .map_err(draw_err)?
+                    } else {
+                        chart
+                            .draw_series(LineSeries::new(line, edge))
+                            .map_err(draw_err)?
+                    };
+                    if ie == 0 && dashed {
+                        anno.label(&band.label).legend(move |(x, y)| {
+                            let seg = |x0: i32, x1: i32, yy: i32| {
+                                PathElement::new([(x0, yy), (x1, yy)], c.stroke_width(3))
+                            };
+                            EmptyElement::at((x, y))
+                                + Rectangle::new([(0, -9), (30, 9)], c.mix(0.15).filled())
+                                + seg(0, 11, -9)
+                                + seg(19, 30, -9)
+                                + seg(0, 11, 9)
+                                + seg(19, 30, 9)
                         });
+                    } else if ie == 0 {
+                        anno.label(&band.label).legend(move |(x, y)| {
+                            let seg =
+                                |yy: i32| PathElement::new([(0, yy), (30, yy)], c.stroke_width(3));
+                            EmptyElement::at((x, y))
+                                + Rectangle::new([(0, -9), (30, 9)], c.mix(0.15).filled())
+                                + seg(-9)
+                                + seg(9)
+                        });
+                    }
                 }
             }
             for s in &p.series {
                 let c = colour(s.colour);
-                let pts: Vec<(f64, f64)> = s
-                    .points
-                    .iter()
-                    .copied()
-                    .filter(|q| {
-                        q.0.is_finite()
-                            && q.1.is_finite()
-                            && (!p.log_x || q.0 > 0.0)
-                            && (!p.log_y || q.1 > 0.0)
-                    })
-                    .collect();
+                let pts = drawable(s, p.log_x, p.log_y);
                 if pts.is_empty() {
                     continue;
                 }
@@ -287,12 +455,14 @@ where
                             PathElement::new([(x, y), (x + 30, y)], c.stroke_width(4))
                         });
                 }
-                chart
-                    .draw_series(pts.iter().map(|&q| Circle::new(q, 5, c.filled())))
-                    .map_err(draw_err)?;
+                if !steps {
+                    chart
+                        .draw_series(pts.iter().map(|&q| Circle::new(q, 5, c.filled())))
+                        .map_err(draw_err)?;
+                }
             }
-            if !p.series.is_empty() || !p.bands.is_empty() {
-                draw_legend(&mut chart)?;
+            if !labels.is_empty() {
+                draw_legend(&mut chart, pos)?;
             }
         }};
     }
@@ -330,6 +500,9 @@ pub enum Figure {
     Lines(LinePlot),
     /// Two line plots stacked (top 62%, bottom 38%) sharing the x range.
     TwoPanel(LinePlot, LinePlot),
+    /// A line plot whose series are staircases: for each bin the points (x_lo, y) and
+    /// (x_hi, y), drawn as steps without point markers (e.g. per redshift bin).
+    Steps(LinePlot),
     /// A plane: values on a grid (log10 colour scale) with an optional contour line.
     Plane(PlanePlot),
     /// Ellipses in a plane.
@@ -355,6 +528,9 @@ pub struct PlanePlot {
     pub value_label: String,
     /// A curve to overlay (e.g. the crossover), with its legend label.
     pub curve: Option<(String, Vec<(f64, f64)>)>,
+    /// Upper bounds on the curve's x at a y: the curve lies at or below this x, left of
+    /// the grid (drawn as arrows to the plot's left edge, never as found points).
+    pub bounds: Vec<(f64, f64)>,
 }
 
 /// Ellipses (1 and 2 sigma) for several probes in one parameter plane.
@@ -370,11 +546,11 @@ pub struct EllipsePlot {
     pub ellipses: Vec<(String, [f64; 3], usize)>,
 }
 
-/// Writes `fig` as `stem.png` and `stem.svg` in `dir`.
+/// Writes `fig` as `stem.png` and `stem.svg` in `dir`; returns the SVG text.
 ///
 /// # Errors
 /// I/O errors and drawing failures.
-pub fn write_figure(fig: &Figure, dir: &Path, stem: &str) -> Result<()> {
+pub fn write_figure(fig: &Figure, dir: &Path, stem: &str) -> Result<String> {
     register_font();
     let png = dir.join(format!("{stem}.png"));
     let svg = dir.join(format!("{stem}.svg"));
@@ -395,7 +571,7 @@ pub fn write_figure(fig: &Figure, dir: &Path, stem: &str) -> Result<()> {
         path: png.clone(),
         source,
     })?;
-    Ok(())
+    Ok(text)
 }
 
 fn render<DB: DrawingBackend>(fig: &Figure, root: &Area<'_, DB>) -> Result<()>
@@ -404,7 +580,8 @@ where
 {
     root.fill(&WHITE).map_err(draw_err)?;
     match fig {
-        Figure::Lines(p) => draw_lines(root, p, None),
+        Figure::Lines(p) => draw_lines(root, p, None, false),
+        Figure::Steps(p) => draw_lines(root, p, None, true),
         Figure::TwoPanel(a, b) => {
             let (top, bottom) = root.split_vertically((SIZE.1 as f64 * 0.62) as u32);
             let xs = a
@@ -413,271 +590,12 @@ where
                 .chain(&b.series)
                 .flat_map(|s| s.points.iter().map(|q| q.0));
             let xr = finite_range(xs, a.log_x);
-            draw_lines(&top, a, xr)?;
-            draw_lines(&bottom, b, xr)
+            draw_lines(&top, a, xr, false)?;
+            draw_lines(&bottom, b, xr, false)
         }
-        Figure::Plane(p) => draw_plane(root, p),
-        Figure::Ellipses(p) => draw_ellipses(root, p),
+        Figure::Plane(p) => plane::draw_plane(root, p),
+        Figure::Ellipses(p) => ellipses::draw_ellipses(root, p),
     }
-}
-
-fn edges(c: &[f64]) -> Vec<f64> {
-    // Geometric mid-points between log-spaced centres.
-    let n = c.len();
-    if n == 1 {
-        return vec![c[0] / 1.2, c[0] * 1.2];
-    }
-    let mut e = Vec::with_capacity(n + 1);
-    e.push(c[0] / (c[1] / c[0]).sqrt());
-    for i in 0..n - 1 {
-        e.push((c[i] * c[i + 1]).sqrt());
-    }
-    e.push(c[n - 1] * (c[n - 1] / c[n - 2]).sqrt());
-    e
-}
-
-fn ramp(t: f64) -> RGBColor {
-    // A perceptually ordered blue -> green -> yellow ramp of our own (light = small).
-    let t = t.clamp(0.0, 1.0);
-    let stops = [
-        (255.0, 247.0, 188.0),
-        (161.0, 218.0, 180.0),
-        (65.0, 182.0, 196.0),
-        (34.0, 94.0, 168.0),
-        (12.0, 44.0, 90.0),
-    ];
-    let x = t * (stops.len() - 1) as f64;
-    let i = (x.floor() as usize).min(stops.len() - 2);
-    let f = x - i as f64;
-    let mix = |a: f64, b: f64| (a + (b - a) * f) as u8;
-    RGBColor(
-        mix(stops[i].0, stops[i + 1].0),
-        mix(stops[i].1, stops[i + 1].1),
-        mix(stops[i].2, stops[i + 1].2),
-    )
-}
-
-fn draw_plane<DB: DrawingBackend>(root: &Area<'_, DB>, p: &PlanePlot) -> Result<()>
-where
-    DB::ErrorType: 'static,
-{
-    let font = |sz: u32| (FAMILY, sz).into_font();
-    let (main, bar) = root.split_horizontally(1000);
-    let ex = edges(&p.x);
-    let ey = edges(&p.y);
-    let logs: Vec<f64> = p
-        .values
-        .iter()
-        .flatten()
-        .filter(|v| v.is_finite() && **v > 0.0)
-        .map(|v| v.log10())
-        .collect();
-    let (lo, hi) = logs
-        .iter()
-        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
-            (a.min(v), b.max(v))
-        });
-    let (lo, hi) = if lo < hi {
-        (lo, hi)
-    } else {
-        (lo - 0.5, lo + 0.5)
-    };
-    let mut chart = ChartBuilder::on(&main)
-        .margin(20)
-        .x_label_area_size(80)
-        .y_label_area_size(120)
-        .caption(&p.title, font(34))
-        .build_cartesian_2d(
-            (ex[0]..ex[ex.len() - 1])
-                .log_scale()
-                .with_key_points(log_keys(ex[0], ex[ex.len() - 1])),
-            (ey[0]..ey[ey.len() - 1])
-                .log_scale()
-                .with_key_points(log_keys(ey[0], ey[ey.len() - 1])),
-        )
-        .map_err(draw_err)?;
-    chart
-        .configure_mesh()
-        .x_desc(&p.x_label)
-        .y_desc(&p.y_label)
-        .label_style(font(26))
-        .axis_desc_style(font(30))
-        .x_label_formatter(&|v| tick(*v, true))
-        .y_label_formatter(&|v| tick(*v, true))
-        .disable_mesh()
-        .draw()
-        .map_err(draw_err)?;
-    for (iy, row) in p.values.iter().enumerate() {
-        for (ix, &v) in row.iter().enumerate() {
-            let c = if v.is_finite() && v > 0.0 {
-                ramp((v.log10() - lo) / (hi - lo))
-            } else {
-                RGBColor(220, 220, 220)
-            };
-            chart
-                .draw_series(std::iter::once(Rectangle::new(
-                    [(ex[ix], ey[iy]), (ex[ix + 1], ey[iy + 1])],
-                    c.filled(),
-                )))
-                .map_err(draw_err)?;
-        }
-    }
-    if let Some((label, pts)) = &p.curve {
-        let pts: Vec<(f64, f64)> = pts
-            .iter()
-            .copied()
-            .filter(|q| q.0.is_finite() && q.1.is_finite() && q.0 > 0.0 && q.1 > 0.0)
-            .collect();
-        if !pts.is_empty() {
-            let c = colour(1);
-            chart
-                .draw_series(LineSeries::new(pts.clone(), c.stroke_width(5)))
-                .map_err(draw_err)?
-                .label(label)
-                .legend(move |(x, y)| PathElement::new([(x, y), (x + 30, y)], c.stroke_width(5)));
-            chart
-                .draw_series(pts.iter().map(|&q| Circle::new(q, 6, c.filled())))
-                .map_err(draw_err)?;
-            draw_legend(&mut chart)?;
-        }
-    }
-    // Colour bar.
-    let mut cb = ChartBuilder::on(&bar)
-        .margin_top(80)
-        .margin_bottom(100)
-        .margin_right(10)
-        .y_label_area_size(110)
-        .build_cartesian_2d(
-            0.0..1.0,
-            (10f64.powf(lo)..10f64.powf(hi))
-                .log_scale()
-                .with_key_points(log_keys(10f64.powf(lo), 10f64.powf(hi))),
-        )
-        .map_err(draw_err)?;
-    cb.configure_mesh()
-        .disable_x_axis()
-        .disable_mesh()
-        .y_desc(&p.value_label)
-        .y_label_formatter(&|v| tick(*v, true))
-        .label_style(font(22))
-        .axis_desc_style(font(24))
-        .draw()
-        .map_err(draw_err)?;
-    let n = 60;
-    for i in 0..n {
-        let a = lo + (hi - lo) * i as f64 / n as f64;
-        let b = lo + (hi - lo) * (i + 1) as f64 / n as f64;
-        cb.draw_series(std::iter::once(Rectangle::new(
-            [(0.0, 10f64.powf(a)), (1.0, 10f64.powf(b))],
-            ramp(i as f64 / (n - 1) as f64).filled(),
-        )))
-        .map_err(draw_err)?;
-    }
-    Ok(())
-}
-
-/// Delta chi^2 enclosing probability `p` for two Gaussian parameters: the inverse CDF of
-/// the chi-square distribution with 2 degrees of freedom (statrs); 2.30 for 68.27% and
-/// 6.18 for 95.45%.
-pub fn delta_chi2(p: f64) -> f64 {
-    use statrs::distribution::{ChiSquared, ContinuousCDF};
-    ChiSquared::new(2.0).map_or(-2.0 * (1.0 - p).ln(), |d| d.inverse_cdf(p))
-}
-
-/// Points of the n-sigma ellipse of a 2x2 covariance (2D Gaussian: Delta chi^2 = 2.30
-/// for 68.3%, 6.18 for 95.4%; e.g. Coe 2009, arXiv:0906.4123).
-pub fn ellipse_points(cov: [f64; 3], delta_chi2: f64, n: usize) -> Vec<(f64, f64)> {
-    let [a, b, c] = cov;
-    let tr = 0.5 * (a + c);
-    let det = (0.25 * (a - c) * (a - c) + b * b).sqrt();
-    let (l1, l2) = (tr + det, (tr - det).max(0.0));
-    let theta = 0.5 * (2.0 * b).atan2(a - c);
-    let (s1, s2) = ((l1 * delta_chi2).sqrt(), (l2 * delta_chi2).sqrt());
-    (0..=n)
-        .map(|i| {
-            let t = 2.0 * std::f64::consts::PI * i as f64 / n as f64;
-            let (x, y) = (s1 * t.cos(), s2 * t.sin());
-            (
-                x * theta.cos() - y * theta.sin(),
-                x * theta.sin() + y * theta.cos(),
-            )
-        })
-        .collect()
-}
-
-/// (label, palette index, 1-sigma points, 2-sigma points).
-type EllipseCurves = (String, usize, Vec<(f64, f64)>, Vec<(f64, f64)>);
-
-fn draw_ellipses<DB: DrawingBackend>(root: &Area<'_, DB>, p: &EllipsePlot) -> Result<()>
-where
-    DB::ErrorType: 'static,
-{
-    let font = |sz: u32| (FAMILY, sz).into_font();
-    let mut ext: f64 = 0.0;
-    let mut eyt: f64 = 0.0;
-    let curves: Vec<EllipseCurves> = p
-        .ellipses
-        .iter()
-        .filter(|e| e.1.iter().all(|v| v.is_finite()) && e.1[0] > 0.0 && e.1[2] > 0.0)
-        .map(|(l, cov, c)| {
-            let one = ellipse_points(*cov, delta_chi2(0.682_689_492), 200);
-            let two = ellipse_points(*cov, delta_chi2(0.954_499_736), 200);
-            for q in &two {
-                ext = ext.max(q.0.abs());
-                eyt = eyt.max(q.1.abs());
-            }
-            (l.clone(), *c, one, two)
-        })
-        .collect();
-    let (ext, eyt) = (
-        if ext > 0.0 { ext * 1.15 } else { 1.0 },
-        if eyt > 0.0 { eyt * 1.15 } else { 1.0 },
-    );
-    let mut chart = ChartBuilder::on(root)
-        .margin(20)
-        .x_label_area_size(80)
-        .y_label_area_size(120)
-        .caption(&p.title, font(34))
-        .build_cartesian_2d(-ext..ext, -eyt..eyt)
-        .map_err(draw_err)?;
-    chart
-        .configure_mesh()
-        .x_desc(&p.x_label)
-        .y_desc(&p.y_label)
-        .label_style(font(26))
-        .axis_desc_style(font(30))
-        .x_label_formatter(&|v| tick(*v, false))
-        .y_label_formatter(&|v| tick(*v, false))
-        .light_line_style(WHITE)
-        .draw()
-        .map_err(draw_err)?;
-    for (label, ci, one, two) in &curves {
-        let c = colour(*ci);
-        chart
-            .draw_series(std::iter::once(Polygon::new(
-                two.clone(),
-                c.mix(0.12).filled(),
-            )))
-            .map_err(draw_err)?;
-        chart
-            .draw_series(std::iter::once(Polygon::new(
-                one.clone(),
-                c.mix(0.3).filled(),
-            )))
-            .map_err(draw_err)?;
-        chart
-            .draw_series(LineSeries::new(one.clone(), c.stroke_width(4)))
-            .map_err(draw_err)?
-            .label(label)
-            .legend(move |(x, y)| PathElement::new([(x, y), (x + 30, y)], c.stroke_width(4)));
-        chart
-            .draw_series(LineSeries::new(two.clone(), c.stroke_width(2)))
-            .map_err(draw_err)?;
-    }
-    if !curves.is_empty() {
-        draw_legend(&mut chart)?;
-    }
-    Ok(())
 }
 
 #[cfg(test)]
@@ -701,20 +619,21 @@ mod tests {
     }
 
     #[test]
-    fn chi_square_levels() {
-        // For 2 degrees of freedom the CDF is 1 - exp(-x/2) exactly.
-        assert!((delta_chi2(0.682_689_492) - 2.2957).abs() < 1e-3);
-        assert!((delta_chi2(0.954_499_736) - 6.1801).abs() < 1e-3);
-    }
-
-    #[test]
-    fn ellipse_has_the_right_extent() {
-        // Uncorrelated: the 1-sigma-in-2D ellipse reaches sqrt(2.30) sigma on each axis.
-        let pts = ellipse_points([4.0, 0.0, 1.0], 2.30, 400);
-        let mx = pts.iter().map(|p| p.0.abs()).fold(0.0, f64::max);
-        let my = pts.iter().map(|p| p.1.abs()).fold(0.0, f64::max);
-        assert!((mx - 2.0 * 2.30f64.sqrt()).abs() < 1e-3);
-        assert!((my - 2.30f64.sqrt()).abs() < 1e-3);
+    fn legend_goes_where_the_data_are_not() {
+        // Data along the top: a lower corner is chosen.
+        let top: Vec<(f64, f64)> = (0..=20).map(|i| (i as f64 / 20.0, 0.95)).collect();
+        assert!(matches!(
+            legend_corner(&top, 0.3, 0.2),
+            Some(SeriesLabelPosition::LowerRight)
+        ));
+        // Data everywhere: no corner.
+        let all: Vec<(f64, f64)> = (0..=400)
+            .map(|i| ((i % 20) as f64 / 19.0, (i / 20) as f64 / 19.0))
+            .collect();
+        assert!(legend_corner(&all, 0.3, 0.2).is_none());
+        // Headroom puts the data under the legend.
+        let y1 = headroom(1.0, 10.0, 10.0, 0.25, true);
+        assert!(unit(10.0, 1.0, y1, true) <= 1.0 - 0.25);
     }
 
     #[test]

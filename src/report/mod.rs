@@ -1,13 +1,27 @@
 //! Output: tables, CSV and JSON built from plain result rows. Nothing in the physics
 //! modules prints; commands build a [`Report`] and render it here.
 //!
-//! Every rendering carries the units: the table and CSV forms start with `# ` comment
-//! lines (the command, the version, the units), and JSON keys carry their unit in the
-//! name (`_mpc`, `_h_mpc`, `_uk2`, ...). JSON is one object with `version`, the resolved
-//! `inputs`, any top-level summary values, and `rows`.
+//! Every rendering carries the units: column names and JSON keys carry their unit in the
+//! name (`_mpc`, `_h_mpc`, `_uk2`, ...); the table form starts with `# ` comment lines
+//! (the command, the version, the conventions). CSV is one header row and the data, so
+//! NumPy and pandas read it without options; ECSV adds the units, notes and summary
+//! values in its header. JSON is one object with `version`, the resolved `inputs`, any
+//! top-level summary values, and `rows`.
+//!
+//! A JSON null is a number with no finite value: an infinite sigma (no information) in
+//! columns named `sigma*`, otherwise an undefined value (for example a log slope on a
+//! one-point grid). Text renderings say `inf` for the first and leave the second empty
+//! (CSV) or write `-` (table).
 
+pub mod artifacts;
+pub mod budget;
+pub mod console;
 pub mod figures;
+pub mod html;
+pub mod latex;
+pub mod matrices;
 pub mod outputs;
+pub mod table;
 
 use serde_json::{Map, Value};
 
@@ -21,8 +35,19 @@ pub enum Format {
     Table,
     /// One JSON object.
     Json,
-    /// Comma-separated values with `#` comment lines on top.
+    /// Comma-separated values: one header row, then the rows.
     Csv,
+    /// ECSV 1.0 (astropy's self-describing table): units and notes in its header.
+    Ecsv,
+}
+
+/// Output format of `run`'s terminal summary.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum SummaryFormat {
+    /// The compact text summary.
+    Table,
+    /// The summary.json object.
+    Json,
 }
 
 /// A tabular result with its metadata.
@@ -62,7 +87,20 @@ impl Report {
     pub fn render(&self, format: Format) -> String {
         match format {
             Format::Json => self.to_json_string(),
-            Format::Csv => self.to_csv(),
+            Format::Csv => self.to_file_table().to_csv(),
+            Format::Ecsv => {
+                let mut meta = serde_json::Map::new();
+                meta.insert(
+                    "generator".into(),
+                    Value::String(format!("ngreach {}", crate::VERSION)),
+                );
+                meta.insert("command".into(), Value::String(self.command.clone()));
+                meta.insert("inputs".into(), self.inputs.clone());
+                for (k, v) in &self.summary {
+                    meta.insert(k.clone(), v.clone());
+                }
+                self.to_file_table().to_ecsv(&Value::Object(meta))
+            }
             Format::Table => self.to_table(),
         }
     }
@@ -109,19 +147,27 @@ impl Report {
         s
     }
 
-    fn to_csv(&self) -> String {
-        let mut s = self.header_lines();
-        for (k, v) in &self.summary {
-            s.push_str(&format!("# {k} = {}\n", cell_plain(v)));
-        }
-        s.push_str(&self.columns.join(","));
-        s.push('\n');
+    /// The rows as a file table (units read from the column names).
+    fn to_file_table(&self) -> table::Table {
+        let cols = self
+            .columns
+            .iter()
+            .map(|c| table::Column::new(c, ""))
+            .collect();
+        let mut t = table::Table::new(&self.command, &format!("ngreach {}", self.command), cols);
+        t.notes = self.notes.clone();
         for r in &self.rows {
-            let cells: Vec<String> = r.iter().map(cell_csv).collect();
-            s.push_str(&cells.join(","));
-            s.push('\n');
+            t.push(
+                r.iter()
+                    .zip(&self.columns)
+                    .map(|(v, c)| match v {
+                        Value::Null if c.starts_with("sigma") => table::Cell::Float(f64::INFINITY),
+                        other => table::Cell::from_json(other),
+                    })
+                    .collect(),
+            );
         }
-        s
+        t
     }
 
     fn to_table(&self) -> String {
@@ -135,7 +181,15 @@ impl Report {
         let cells: Vec<Vec<String>> = self
             .rows
             .iter()
-            .map(|r| r.iter().map(cell_short).collect())
+            .map(|r| {
+                r.iter()
+                    .zip(&self.columns)
+                    .map(|(v, c)| match v {
+                        Value::Null if !c.starts_with("sigma") => "-".to_string(),
+                        other => cell_short(other),
+                    })
+                    .collect()
+            })
             .collect();
         let mut width: Vec<usize> = self.columns.iter().map(|c| c.len()).collect();
         for r in &cells {
@@ -175,9 +229,13 @@ fn cell_plain(v: &Value) -> String {
     }
 }
 
+/// A table cell: reals with four significant digits, trailing zeros kept, so a column
+/// reads at one precision ("5.000" next to "5.240").
 fn cell_short(v: &Value) -> String {
-    let s = cell_plain(v);
-    trim_zeros(&s)
+    match v {
+        Value::Number(n) if n.is_f64() => n.as_f64().map_or_else(String::new, |x| format_sig(x, 4)),
+        other => cell_plain(other),
+    }
 }
 
 /// [`trim_zeros`] for the figure code.
@@ -196,16 +254,6 @@ fn trim_zeros(s: &str) -> String {
     }
     let m = mant.trim_end_matches('0').trim_end_matches('.');
     format!("{m}{exp}")
-}
-
-fn cell_csv(v: &Value) -> String {
-    match v {
-        Value::Number(n) => n.to_string(),
-        Value::String(t) if t.contains(',') => format!("\"{t}\""),
-        Value::String(t) => t.clone(),
-        Value::Null => "inf".into(),
-        other => other.to_string(),
-    }
 }
 
 /// Formats with `sig` significant digits, switching to exponent form for very large or
@@ -284,15 +332,26 @@ mod tests {
     }
 
     #[test]
-    fn csv_has_comment_then_header() {
+    fn csv_is_header_then_rows_and_ecsv_keeps_the_notes() {
         let mut r = Report::new("x");
         r.notes.push("lengths in Mpc".into());
-        r.columns = vec!["a".into(), "b".into()];
-        r.rows = vec![vec![num(1.0), Value::String("q".into())]];
+        r.columns = vec!["a".into(), "b".into(), "sigma".into(), "log_slope".into()];
+        r.rows = vec![vec![
+            num(1.0),
+            Value::String("q".into()),
+            Value::Null,
+            Value::Null,
+        ]];
         let csv = r.render(Format::Csv);
         let lines: Vec<&str> = csv.lines().collect();
-        assert!(lines[0].starts_with("# ngreach"));
-        assert_eq!(lines[2], "a,b");
-        assert_eq!(lines[3], "1.0,q");
+        assert_eq!(lines, ["a,b,sigma,log_slope", "1.0,q,inf,"]);
+        let ecsv = r.render(Format::Ecsv);
+        assert!(ecsv.starts_with("# %ECSV 1.0") && ecsv.contains("lengths in Mpc"));
+        let table = r.render(Format::Table);
+        let last = table.lines().last().unwrap();
+        assert!(
+            last.contains("inf") && last.trim_end().ends_with('-'),
+            "{last}"
+        );
     }
 }

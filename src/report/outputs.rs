@@ -7,30 +7,16 @@ use std::path::Path;
 
 use serde_json::{Value, json};
 
-use crate::cmb::bispectrum::FieldSet;
 use crate::combine::{Crossover, crossover, improvement, log_slopes, sigmas};
 use crate::error::{Error, Result};
-use crate::fisher::FisherMatrix;
 use crate::pipeline::RunResult;
-use crate::report::figures::{
-    Band, EllipsePlot, Figure, LinePlot, PlanePlot, Series, write_figure,
-};
-use crate::report::{format_sig, num, write_atomic};
-use crate::survey::fisher::Probe;
+use crate::report::artifacts::{Artifact, cmb_reference_set, pidx};
+use crate::report::figures::write_figure;
+use crate::report::table::TableFormat;
+use crate::report::{num, write_atomic};
 
-/// Index of a probe in the survey engine's [P, B, P+B] arrays.
-fn pidx(p: Probe) -> usize {
-    match p {
-        Probe::P => 0,
-        Probe::B => 1,
-        Probe::PB => 2,
-    }
-}
-
-/// The field set used for "the CMB" in comparisons: T+E when computed, else the first.
-fn cmb_reference_set(fields: &[FieldSet]) -> usize {
-    fields.iter().position(|&f| f == FieldSet::TE).unwrap_or(0)
-}
+pub use crate::report::console::terminal_summary;
+pub use crate::report::latex::latex_table;
 
 /// A crossover entry with its labels.
 #[derive(Debug, Clone, serde::Serialize)]
@@ -155,7 +141,7 @@ pub fn summary_json(r: &RunResult) -> Value {
                             let imp = improvement(&[cm[is], sm[is]], jm[is]);
                             joint_rows.push(json!({"experiment": c.experiment.name, "cmb_fields": c.forecast.field_sets[fs].label(), "survey": s.survey.name,
                                 "probe": p.label(), "lmax": lm, "kmax_h_mpc": k, "shape": shape, "sigma_conditional": num(jc[is]),
-                                "sigma_marginal": num(jm[is]), "improvement": num(imp)}));
+                                "sigma_marginal": num(jm[is]), "sigma_cmb": num(cm[is]), "sigma_survey": num(sm[is]), "improvement": num(imp)}));
                             if m + 1 == c.forecast.lmax.len() && ik + 1 == sc.kmax_h_mpc.len() {
                                 rows.push(json!({"experiment": c.experiment.name, "survey": s.survey.name, "probe": p.label(), "shape": shape,
                                     "lmax": lm, "kmax_h_mpc": k, "sigma_cmb": num(cm[is]), "sigma_survey": num(sm[is]), "sigma_joint": num(jm[is]),
@@ -192,7 +178,22 @@ pub fn summary_json(r: &RunResult) -> Value {
         "joint": joint_rows,
         "crossover": cross,
         "fisher": {"cmb": cmb_fisher, "survey": survey_fisher},
+        "information": information_json(r),
     })
+}
+
+/// The information budgets (cumulative (S/N)^2 versus l_max and k_max, shares by
+/// redshift bin) as one entry per table: its name, description and rows.
+fn information_json(r: &RunResult) -> Value {
+    json!(
+        crate::report::budget::budgets(r)
+            .iter()
+            .map(
+                |a| json!({"table": a.table.stem, "description": a.table.description,
+                "rows": a.table.to_json_rows()})
+            )
+            .collect::<Vec<_>>()
+    )
 }
 
 fn inputs_json(r: &RunResult) -> Value {
@@ -223,28 +224,6 @@ fn inputs_json(r: &RunResult) -> Value {
     })
 }
 
-fn csv(header: &[&str], notes: &[&str], rows: &[Vec<String>]) -> String {
-    let mut s = format!("# ngreach {}\n", crate::VERSION);
-    for n in notes {
-        s.push_str(&format!("# {n}\n"));
-    }
-    s.push_str(&header.join(","));
-    s.push('\n');
-    for r in rows {
-        s.push_str(&r.join(","));
-        s.push('\n');
-    }
-    s
-}
-
-fn f(x: f64) -> String {
-    if x.is_finite() {
-        format!("{x}")
-    } else {
-        "inf".into()
-    }
-}
-
 /// A file-name-safe version of a label.
 pub fn slug(s: &str) -> String {
     let mut out = String::new();
@@ -260,549 +239,101 @@ pub fn slug(s: &str) -> String {
     out.trim_matches('_').to_string()
 }
 
-/// Writes every output of a run into `dir`. Returns the file names written.
+/// What `write_outputs_with` writes besides the fixed set.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct OutputOptions {
+    /// File format of the tables.
+    pub tables: TableFormat,
+    /// Write `report.html`.
+    pub report: bool,
+}
+
+impl Default for OutputOptions {
+    fn default() -> Self {
+        Self {
+            tables: TableFormat::Csv,
+            report: true,
+        }
+    }
+}
+
+/// Writes every output of a run into `dir` with the default options (CSV tables and the
+/// report page). Returns the file names written.
 ///
 /// # Errors
 /// I/O and drawing errors.
 pub fn write_outputs(r: &RunResult, dir: &Path) -> Result<Vec<String>> {
+    write_outputs_with(r, dir, &OutputOptions::default())
+}
+
+/// The provenance every table file carries (ECSV `meta`) or points to (`tables.json`).
+fn provenance(r: &RunResult) -> Value {
+    json!({"generator": format!("ngreach {}", crate::VERSION), "version": crate::VERSION,
+        "scenario": r.scenario.name, "source": r.scenario.source,
+        "inputs": "the resolved inputs are in summary.json (key `inputs`)"})
+}
+
+/// Writes every output of a run into `dir`: the tables (CSV with a `tables.json`
+/// sidecar, or ECSV), the figures (PNG and SVG), the Fisher matrices (`fisher/*.npy`),
+/// `table.tex`, `summary.json` and `report.html`. Returns the file names written.
+///
+/// # Errors
+/// I/O and drawing errors.
+pub fn write_outputs_with(r: &RunResult, dir: &Path, opts: &OutputOptions) -> Result<Vec<String>> {
     std::fs::create_dir_all(dir).map_err(|source| Error::Io {
         path: dir.to_path_buf(),
         source,
     })?;
     let sc = &r.scenario;
     let mut written = Vec::new();
-    let shapes: Vec<String> = sc.shapes.iter().map(|s| s.name()).collect();
     let put = |name: &str, bytes: &[u8], written: &mut Vec<String>| -> Result<()> {
         write_atomic(&dir.join(name), bytes)?;
         written.push(name.to_string());
         Ok(())
     };
-    // (a) sigma versus k_max per survey probe, with CMB bands, one figure per shape.
-    for (is, shape) in shapes.iter().enumerate() {
-        let mut series = Vec::new();
-        let mut rows = Vec::new();
-        for (isv, s) in r.surveys.iter().enumerate() {
-            for (ip, &p) in sc.probes.iter().enumerate() {
-                let pts: Vec<(f64, f64)> = sc
-                    .kmax_h_mpc
-                    .iter()
-                    .enumerate()
-                    .map(|(ik, &k)| (k, s.forecast.total[ik][pidx(p)].sigma_marginal_or_inf()[is]))
-                    .collect();
-                for &(k, v) in &pts {
-                    rows.push(vec![s.survey.name.clone(), p.label().into(), f(k), f(v)]);
-                }
-                series.push(Series {
-                    label: format!("{} {}", s.survey.name, p.label()),
-                    points: pts,
-                    colour: ip + 3 * isv,
-                    dashed: isv % 2 == 1,
-                });
-            }
-        }
-        let mut bands = Vec::new();
-        for (ic, c) in r.cmb.iter().enumerate() {
-            let te = cmb_reference_set(&c.forecast.field_sets);
-            let t = c
-                .forecast
-                .field_sets
-                .iter()
-                .position(|&x| x == FieldSet::T)
-                .unwrap_or(te);
-            let lo = c.forecast.fisher[te]
-                .last()
-                .map_or(f64::NAN, |m| m.sigma_marginal_or_inf()[is]);
-            let hi = c.forecast.fisher[t]
-                .last()
-                .map_or(f64::NAN, |m| m.sigma_marginal_or_inf()[is]);
-            bands.push(Band {
-                label: format!("{} (T+E to T)", c.experiment.name),
-                lo: lo.min(hi),
-                hi: lo.max(hi),
-                colour: 5 + ic,
-            });
-            rows.push(vec![
-                format!("CMB {}", c.experiment.name),
-                "T+E".into(),
-                "".into(),
-                f(lo),
-            ]);
-            rows.push(vec![
-                format!("CMB {}", c.experiment.name),
-                "T".into(),
-                "".into(),
-                f(hi),
-            ]);
-        }
-        let stem = format!("sigma_vs_kmax_{}", slug(shape));
-        put(&format!("{stem}.csv"), csv(&["source", "probe", "kmax_h_mpc", "sigma_marginal"], &[&format!("sigma(f_NL {shape}) marginalized over the other shapes; CMB rows at the largest l_max")], &rows).as_bytes(), &mut written)?;
-        if sc.output.figures && !series.is_empty() {
-            let fig = Figure::Lines(LinePlot {
-                title: format!("f_NL {shape}: survey versus CMB"),
-                x_label: "k_max [h/Mpc]".into(),
-                y_label: "sigma(f_NL), marginalized".into(),
-                log_x: true,
-                log_y: true,
-                series,
-                bands,
-            });
-            write_figure(&fig, dir, &stem)?;
-            written.push(format!("{stem}.png"));
-            written.push(format!("{stem}.svg"));
-        }
-    }
-    // (b) sigma versus l_max for T, E, T+E with the log slope, per experiment and shape.
-    for c in &r.cmb {
-        let lm: Vec<f64> = c.forecast.lmax.iter().map(|&l| l as f64).collect();
-        for (is, shape) in shapes.iter().enumerate() {
-            let mut top = Vec::new();
-            let mut bottom = Vec::new();
-            let mut rows = Vec::new();
-            for (ifs, fs) in c.forecast.field_sets.iter().enumerate() {
-                let mats = &c.forecast.fisher[ifs];
-                let sig: Vec<f64> = mats.iter().map(|m| m.sigma_marginal_or_inf()[is]).collect();
-                let info: Vec<f64> = mats.iter().map(|m| m.get(is, is)).collect();
-                let slope = log_slopes(&lm, &info);
-                for m in 0..lm.len() {
-                    rows.push(vec![fs.label().into(), f(lm[m]), f(sig[m]), f(slope[m])]);
-                }
-                top.push(Series {
-                    label: fs.label().into(),
-                    points: lm.iter().copied().zip(sig).collect(),
-                    colour: ifs,
-                    dashed: false,
-                });
-                bottom.push(Series {
-                    label: fs.label().into(),
-                    points: lm.iter().copied().zip(slope).collect(),
-                    colour: ifs,
-                    dashed: false,
-                });
-            }
-            let stem = format!("sigma_vs_lmax_{}_{}", slug(&c.experiment.name), slug(shape));
-            put(&format!("{stem}.csv"), csv(&["fields", "lmax", "sigma_marginal", "log_slope"], &[&format!("{}: sigma(f_NL {shape}); log_slope = d ln F / d ln l_max (conditional information)", c.experiment.name)], &rows).as_bytes(), &mut written)?;
-            if sc.output.figures {
-                let fig = Figure::TwoPanel(
-                    LinePlot {
-                        title: format!("{}: f_NL {shape}", c.experiment.name),
-                        x_label: "l_max".into(),
-                        y_label: "sigma(f_NL)".into(),
-                        log_x: true,
-                        log_y: true,
-                        series: top,
-                        bands: vec![],
-                    },
-                    LinePlot {
-                        title: String::new(),
-                        x_label: "l_max".into(),
-                        y_label: "d ln F / d ln l_max".into(),
-                        log_x: true,
-                        log_y: false,
-                        series: bottom,
-                        bands: vec![],
-                    },
-                );
-                write_figure(&fig, dir, &stem)?;
-                written.push(format!("{stem}.png"));
-                written.push(format!("{stem}.svg"));
-            }
-        }
-    }
-    // (c) joint sigma over (k_max, l_max) with the crossover contour; (d) ellipses.
-    let pb = sc
-        .probes
-        .iter()
-        .copied()
-        .find(|&p| p == Probe::PB)
-        .or_else(|| sc.probes.first().copied());
-    if let Some(pb) = pb {
-        for c in &r.cmb {
-            let fs = cmb_reference_set(&c.forecast.field_sets);
-            for s in &r.surveys {
-                for (is, shape) in shapes.iter().enumerate() {
-                    let mut values = Vec::new();
-                    let mut rows = Vec::new();
-                    let mut curve = Vec::new();
-                    for (m, &lm) in c.forecast.lmax.iter().enumerate() {
-                        let fc = &c.forecast.fisher[fs][m];
-                        let mut row = Vec::new();
-                        for (ik, &k) in sc.kmax_h_mpc.iter().enumerate() {
-                            let v = fc
-                                .combine(&s.forecast.total[ik][pidx(pb)])
-                                .sigma_marginal_or_inf()[is];
-                            row.push(v);
-                            rows.push(vec![f(lm as f64), f(k), f(v)]);
-                        }
-                        values.push(row);
-                        let sig: Vec<f64> = s
-                            .forecast
-                            .total
-                            .iter()
-                            .map(|t| t[pidx(pb)].sigma_marginal_or_inf()[is])
-                            .collect();
-                        if let Some(kx) =
-                            crossover(&sc.kmax_h_mpc, &sig, fc.sigma_marginal_or_inf()[is])
-                                .kmax_h_mpc
-                        {
-                            curve.push((kx, lm as f64));
-                        }
-                    }
-                    let stem = format!(
-                        "joint_plane_{}_{}_{}",
-                        slug(&c.experiment.name),
-                        slug(&s.survey.name),
-                        slug(shape)
-                    );
-                    put(
-                        &format!("{stem}.csv"),
-                        csv(
-                            &["lmax", "kmax_h_mpc", "sigma_joint_marginal"],
-                            &[&format!(
-                                "{} (T+E) + {} ({}), f_NL {shape}",
-                                c.experiment.name,
-                                s.survey.name,
-                                pb.label()
-                            )],
-                            &rows,
-                        )
-                        .as_bytes(),
-                        &mut written,
-                    )?;
-                    if sc.output.figures {
-                        let fig = Figure::Plane(PlanePlot {
-                            title: format!(
-                                "joint sigma(f_NL {shape}): {} + {} {}",
-                                c.experiment.name,
-                                s.survey.name,
-                                pb.label()
-                            ),
-                            x_label: "k_max [h/Mpc]".into(),
-                            y_label: "l_max".into(),
-                            x: sc.kmax_h_mpc.clone(),
-                            y: c.forecast.lmax.iter().map(|&l| l as f64).collect(),
-                            values,
-                            value_label: "joint sigma(f_NL)".into(),
-                            curve: Some(("survey beats CMB (crossover)".into(), curve)),
-                        });
-                        write_figure(&fig, dir, &stem)?;
-                        written.push(format!("{stem}.png"));
-                        written.push(format!("{stem}.svg"));
-                    }
-                }
-                // (d) Fisher ellipses for pairs of shapes.
-                for i in 0..shapes.len() {
-                    for j in i + 1..shapes.len() {
-                        let fc = c.forecast.fisher[fs].last().expect("grid");
-                        let fsv = s.forecast.total.last().expect("grid")[pidx(pb)].clone();
-                        let joint = fc.combine(&fsv);
-                        let mut ell = Vec::new();
-                        let mut rows = Vec::new();
-                        for (label, m, col) in [
-                            (format!("{} T+E", c.experiment.name), fc.clone(), 0usize),
-                            (format!("{} {}", s.survey.name, pb.label()), fsv.clone(), 1),
-                            ("joint".to_string(), joint, 2),
-                        ] {
-                            if let Some(cov) = pair_covariance(&m, i, j) {
-                                rows.push(vec![label.clone(), f(cov[0]), f(cov[1]), f(cov[2])]);
-                                ell.push((label, cov, col));
-                            }
-                        }
-                        let stem = format!(
-                            "ellipses_{}_{}_{}_{}",
-                            slug(&c.experiment.name),
-                            slug(&s.survey.name),
-                            slug(&shapes[i]),
-                            slug(&shapes[j])
-                        );
-                        put(&format!("{stem}.csv"), csv(&["probe", "cov_xx", "cov_xy", "cov_yy"], &[&format!("marginalized covariance of (f_NL {}, f_NL {}); ellipses at Delta chi^2 = 2.30 and 6.18", shapes[i], shapes[j])], &rows).as_bytes(), &mut written)?;
-                        if sc.output.figures {
-                            let fig = Figure::Ellipses(EllipsePlot {
-                                title: format!(
-                                    "1 and 2 sigma: {} + {}",
-                                    c.experiment.name, s.survey.name
-                                ),
-                                x_label: format!("f_NL {}", shapes[i]),
-                                y_label: format!("f_NL {}", shapes[j]),
-                                ellipses: ell,
-                            });
-                            write_figure(&fig, dir, &stem)?;
-                            written.push(format!("{stem}.png"));
-                            written.push(format!("{stem}.svg"));
-                        }
-                    }
-                }
-            }
-        }
-    }
-    // (e) per-redshift-bin information.
-    for s in &r.surveys {
-        let ik = sc.kmax_h_mpc.len() - 1;
-        let mut series = Vec::new();
-        let mut rows = Vec::new();
-        for (is, shape) in shapes.iter().enumerate() {
-            for (ip, &p) in sc.probes.iter().enumerate() {
-                let pts: Vec<(f64, f64)> = s
-                    .forecast
-                    .bins
-                    .iter()
-                    .map(|b| {
-                        (
-                            b.bin.z_eff,
-                            b.fisher[ik][pidx(p)].sigma_marginal_or_inf()[is],
-                        )
-                    })
-                    .collect();
-                for &(z, v) in &pts {
-                    rows.push(vec![shape.clone(), p.label().into(), f(z), f(v)]);
-                }
-                if p == Probe::PB || sc.probes.len() == 1 {
-                    series.push(Series {
-                        label: format!("{shape} {}", p.label()),
-                        points: pts,
-                        colour: is,
-                        dashed: ip % 2 == 1,
-                    });
-                }
-            }
-        }
-        let stem = format!("per_bin_{}", slug(&s.survey.name));
+    let prov = provenance(r);
+    let artifacts: Vec<Artifact> = crate::report::artifacts::all(r);
+    let mut svgs: Vec<(String, String)> = Vec::new();
+    for a in &artifacts {
+        let t = &a.table;
         put(
-            &format!("{stem}.csv"),
-            csv(
-                &["shape", "probe", "z_eff", "sigma_marginal"],
-                &[&format!(
-                    "{}: sigma(f_NL) per redshift bin at k_max = {} h/Mpc",
-                    s.survey.name, sc.kmax_h_mpc[ik]
-                )],
-                &rows,
-            )
-            .as_bytes(),
+            &t.file_name(opts.tables),
+            t.render(opts.tables, &prov).as_bytes(),
             &mut written,
         )?;
-        if sc.output.figures {
-            let fig = Figure::Lines(LinePlot {
-                title: format!(
-                    "{}: information per redshift bin (k_max = {} h/Mpc)",
-                    s.survey.name,
-                    format_sig(sc.kmax_h_mpc[ik], 3)
-                ),
-                x_label: "z (bin effective redshift)".into(),
-                y_label: "sigma(f_NL) per bin".into(),
-                log_x: false,
-                log_y: true,
-                series,
-                bands: vec![],
-            });
-            write_figure(&fig, dir, &stem)?;
-            written.push(format!("{stem}.png"));
-            written.push(format!("{stem}.svg"));
+        if let (true, Some(fig)) = (sc.output.figures, &a.figure) {
+            let svg = write_figure(fig, dir, &t.stem)?;
+            written.push(format!("{}.png", t.stem));
+            written.push(format!("{}.svg", t.stem));
+            svgs.push((t.stem.clone(), svg));
         }
     }
+    written.extend(crate::report::matrices::write_matrices(
+        r,
+        dir,
+        opts.tables,
+    )?);
     if sc.output.latex {
         put("table.tex", latex_table(r).as_bytes(), &mut written)?;
     }
-    let summary = serde_json::to_string_pretty(&summary_json(r)).unwrap_or_default() + "\n";
-    put("summary.json", summary.as_bytes(), &mut written)?;
-    Ok(written)
-}
-
-/// The marginalized 2x2 covariance [cxx, cxy, cyy] of parameters (i, j), if finite.
-fn pair_covariance(m: &FisherMatrix, i: usize, j: usize) -> Option<[f64; 3]> {
-    let informative: Vec<usize> = (0..m.len()).filter(|&k| m.get(k, k) > 0.0).collect();
-    if !informative.contains(&i) || !informative.contains(&j) {
-        return None;
-    }
-    let names: Vec<&str> = informative.iter().map(|&k| m.names()[k].as_str()).collect();
-    let cov = m.select(&names).ok()?.inverse().ok()?;
-    let a = informative.iter().position(|&k| k == i)?;
-    let b = informative.iter().position(|&k| k == j)?;
-    Some([cov.get(a, a), cov.get(a, b), cov.get(b, b)])
-}
-
-/// The booktabs LaTeX table: shapes by probe, marginalized sigma(f_NL), crossover k_max.
-pub fn latex_table(r: &RunResult) -> String {
-    let sc = &r.scenario;
-    let cross = crossovers(r);
-    let mut cols: Vec<String> = r
-        .cmb
-        .iter()
-        .map(|c| format!("{} T+E", tex(&c.experiment.name)))
-        .collect();
-    for s in &r.surveys {
-        for p in &sc.probes {
-            cols.push(format!("{} {}", tex(&s.survey.name), p.label()));
-        }
-    }
-    let kx = sc.kmax_h_mpc.last().copied().unwrap_or(f64::NAN);
-    let mut t = String::new();
-    t.push_str(&format!(
-        "% ngreach {} -- requires \\usepackage{{booktabs}}\n",
-        crate::VERSION
-    ));
-    t.push_str("\\begin{table}\n\\centering\n");
-    t.push_str(&format!(
-        "\\caption{{Forecast marginalized $\\sigma(f_{{\\rm NL}})$ (CMB convention): CMB at $\\ell_{{\\max}} = {}$, surveys at $k_{{\\max}} = {}\\,h\\,{{\\rm Mpc}}^{{-1}}$; last column: the $k_{{\\max}}$ [$h\\,{{\\rm Mpc}}^{{-1}}$] at which the first survey's P+B beats the first CMB experiment.}}\n",
-        sc.lmax.last().copied().unwrap_or(0),
-        format_sig(kx, 3)
-    ));
-    t.push_str(&format!(
-        "\\begin{{tabular}}{{l{}r}}\n\\toprule\n",
-        "r".repeat(cols.len())
-    ));
-    t.push_str(&format!(
-        "Shape & {} & $k_{{\\rm cross}}$ \\\\\n\\midrule\n",
-        cols.join(" & ")
-    ));
-    for (is, shape) in sc.shapes.iter().enumerate() {
-        let mut cells = Vec::new();
-        for c in &r.cmb {
-            let fs = cmb_reference_set(&c.forecast.field_sets);
-            cells.push(fmt_tex(
-                c.forecast.fisher[fs]
-                    .last()
-                    .map_or(f64::NAN, |m| m.sigma_marginal_or_inf()[is]),
-            ));
-        }
-        for s in &r.surveys {
-            for &p in &sc.probes {
-                cells.push(fmt_tex(
-                    s.forecast
-                        .total
-                        .last()
-                        .map_or(f64::NAN, |t| t[pidx(p)].sigma_marginal_or_inf()[is]),
-                ));
-            }
-        }
-        let kc = cross
+    let summary = summary_json(r);
+    let text = serde_json::to_string_pretty(&summary).unwrap_or_default() + "\n";
+    put("summary.json", text.as_bytes(), &mut written)?;
+    let mut sidecar = prov.clone();
+    sidecar["tables"] = json!(
+        artifacts
             .iter()
-            .find(|c| c.shape == shape.name() && c.probe == "P+B")
-            .map(|c| match c.crossover.kmax_h_mpc {
-                Some(k) if c.crossover.below_grid => format!("$\\le {}$", format_sig(k, 2)),
-                Some(k) => format_sig(k, 2),
-                None => format!("$> {}$", format_sig(kx, 2)),
-            })
-            .unwrap_or_else(|| "--".into());
-        t.push_str(&format!(
-            "{} & {} & {} \\\\\n",
-            tex(&shape.name()),
-            cells.join(" & "),
-            kc
-        ));
+            .map(|a| a.table.describe(opts.tables))
+            .collect::<Vec<_>>()
+    );
+    sidecar["fisher_matrices"] = json!(format!("{}/index.json", crate::report::matrices::FOLDER));
+    let text = serde_json::to_string_pretty(&sidecar).unwrap_or_default() + "\n";
+    put("tables.json", text.as_bytes(), &mut written)?;
+    if opts.report {
+        let page = crate::report::html::run_page(r, &summary, &artifacts, &svgs, opts.tables);
+        put("report.html", page.as_bytes(), &mut written)?;
     }
-    t.push_str("\\bottomrule\n\\end{tabular}\n\\end{table}\n");
-    t
-}
-
-fn tex(s: &str) -> String {
-    s.replace('_', "\\_")
-        .replace('&', "\\&")
-        .replace('%', "\\%")
-}
-
-fn fmt_tex(x: f64) -> String {
-    if x.is_finite() {
-        crate::report::trim_zeros_public(&format_sig(x, 2))
-    } else {
-        "--".into()
-    }
-}
-
-/// The compact terminal summary (fits 100 columns): per survey, shapes by probe
-/// (marginalized sigma at the largest grid values) and the crossover k_max against each
-/// CMB experiment.
-pub fn terminal_summary(r: &RunResult) -> String {
-    let sc = &r.scenario;
-    let cross = crossovers(r);
-    let mut out = String::new();
-    let kx = sc.kmax_h_mpc.last().copied().unwrap_or(f64::NAN);
-    out.push_str(&format!("ngreach {}: {}\n", crate::VERSION, sc.name));
-    out.push_str(&format!(
-        "sigma(f_NL), marginalized over the other shapes; CMB: T+E at l_max = {}; surveys at k_max = {} h/Mpc\n",
-        sc.lmax.last().copied().unwrap_or(0),
-        format_sig(kx, 3)
-    ));
-    let short = |s: &str, n: usize| -> String {
-        if s.chars().count() <= n {
-            s.to_string()
-        } else {
-            let first = s.split_whitespace().next().unwrap_or(s);
-            first.chars().take(n).collect()
-        }
-    };
-    for s in &r.surveys {
-        out.push_str(&format!("\n{}\n", s.survey.name));
-        let mut header = format!("{:<12}", "shape");
-        for c in &r.cmb {
-            header.push_str(&format!("{:>10}", short(&c.experiment.name, 9)));
-        }
-        for p in &sc.probes {
-            header.push_str(&format!("{:>8}", p.label()));
-        }
-        for c in &r.cmb {
-            header.push_str(&format!(
-                "  {:<17}",
-                format!("k_x vs {}", short(&c.experiment.name, 9))
-            ));
-        }
-        out.push_str(header.trim_end());
-        out.push('\n');
-        for (is, shape) in sc.shapes.iter().enumerate() {
-            let mut line = format!("{:<12}", short(&shape.name(), 12));
-            for c in &r.cmb {
-                let fs = cmb_reference_set(&c.forecast.field_sets);
-                line.push_str(&format!(
-                    "{:>10}",
-                    cell(
-                        c.forecast.fisher[fs]
-                            .last()
-                            .map_or(f64::NAN, |m| m.sigma_marginal_or_inf()[is])
-                    )
-                ));
-            }
-            for &p in &sc.probes {
-                line.push_str(&format!(
-                    "{:>8}",
-                    cell(
-                        s.forecast
-                            .total
-                            .last()
-                            .map_or(f64::NAN, |t| t[pidx(p)].sigma_marginal_or_inf()[is])
-                    )
-                ));
-            }
-            for c in &r.cmb {
-                let probe = if sc.probes.contains(&Probe::PB) {
-                    "P+B"
-                } else {
-                    sc.probes[0].label()
-                };
-                let x = cross.iter().find(|x| {
-                    x.experiment == c.experiment.name
-                        && x.survey == s.survey.name
-                        && x.shape == shape.name()
-                        && x.probe == probe
-                });
-                let txt = match x.map(|x| (&x.crossover.kmax_h_mpc, x.crossover.below_grid)) {
-                    Some((Some(k), false)) => format!("{} h/Mpc", format_sig(*k, 2)),
-                    Some((Some(k), true)) => format!("<= {}", format_sig(*k, 2)),
-                    Some((None, _)) => format!("> {}", format_sig(kx, 2)),
-                    None => "-".into(),
-                };
-                line.push_str(&format!("  {txt:<17}"));
-            }
-            out.push_str(line.trim_end());
-            out.push('\n');
-        }
-    }
-    out
-}
-
-fn cell(x: f64) -> String {
-    if x.is_finite() {
-        crate::report::trim_zeros_public(&format_sig(x, 3))
-    } else {
-        "inf".into()
-    }
+    Ok(written)
 }
 
 #[cfg(test)]
