@@ -60,6 +60,7 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                 probes: commands::survey::parse_probes(&a.probes)?,
                 shapes: commands::survey::parse_shapes(&a.shapes, "--shapes")?,
                 linear_power: a.linear_power,
+                covariance: a.covariance,
                 settings: ngreach::survey::fisher::SurveySettings {
                     parallel: a.threads != Some(1),
                     ..Default::default()
