@@ -295,7 +295,7 @@ impl BispectrumBin<'_> {
             }
             umodes.clear();
             if let Some((_, modes)) = self.theory {
-                let hats = shape_hats(k3 / k1);
+                let hats = shape_hats(k1, k2, k3);
                 modes.for_each(kt, |ia, u| {
                     for &(s, hv) in &hats {
                         if hv > 0.0 {

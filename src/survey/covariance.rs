@@ -12,9 +12,9 @@
 //! D normalized to 1 today, k_E = 0.31 h/Mpc, Delta k = 0.1 h/Mpc):
 //! E_P(k, mu) = D(z)^2 (k / k_E)^1.8 P_g(k, mu) on every tracer pair, and
 //! E_B(t) = 3 D(z)^2 (k_t / k_E)^1.8 |B_g,tree(t)|, k_t = (k1 + k2 + k3) / 3. P is
-//! correlated in k, B in k_t and over the triangle shape x = k_min / k_max through three
-//! hat functions on x = 0, 1/2, 1 (a coarse correlation over shape; a choice of this
-//! engine).
+//! correlated in k, B in k_t and over the triangle shape through bilinear hats on
+//! (k3/k1, k2/k1), 5 x 3 nodes (a correlation length of a quarter of the shape range; a
+//! choice of this engine).
 //!
 //! (b) The leading P-B cross-covariance Cov[P(k), B_123] = 2 P(k) B_123 / N_k
 //! (delta_k,k1 + 2 perms) (Sefusatti et al. 2006). It is what a bispectrum estimate
@@ -114,8 +114,13 @@ pub struct ErrorModes {
     pub weight: f64,
 }
 
-/// Hat functions on the triangle-shape coordinate x = k_min / k_max in [0, 1].
-pub const SHAPE_MODES: usize = 3;
+/// Hat nodes on the triangle-shape coordinates x = k3 / k1 (5 nodes on [0, 1]) and
+/// y = k2 / k1 (3 nodes on [1/2, 1]): bilinear hats, 15 shape modes.
+const X_NODES: usize = 5;
+const Y_NODES: usize = 3;
+
+/// Number of shape modes of the bispectrum theoretical error.
+pub const SHAPE_MODES: usize = X_NODES * Y_NODES;
 
 impl ErrorModes {
     /// Nodes covering [k_lo - 3 Delta k, k_hi + 3 Delta k], spaced Delta k / 2.
@@ -163,16 +168,26 @@ impl ErrorModes {
     }
 }
 
-/// The hat functions on the triangle-shape coordinate x = k_min / k_max: (mode, value).
-pub fn shape_hats(x: f64) -> [(usize, f64); 2] {
-    let x = x.clamp(0.0, 1.0);
-    if x < 0.5 {
-        let t = x / 0.5;
-        [(0, 1.0 - t), (1, t)]
-    } else {
-        let t = (x - 0.5) / 0.5;
-        [(1, 1.0 - t), (2, t)]
+/// Linear hats on `n` nodes over [lo, 1]: the two (node, weight) pairs at t.
+fn hats_1d(t: f64, lo: f64, n: usize) -> [(usize, f64); 2] {
+    let u = ((t - lo) / (1.0 - lo)).clamp(0.0, 1.0) * (n - 1) as f64;
+    let i = (u.floor() as usize).min(n - 2);
+    let f = u - i as f64;
+    [(i, 1.0 - f), (i + 1, f)]
+}
+
+/// The bilinear shape hats of a triangle k1 >= k2 >= k3: (mode, value), four pairs that
+/// sum to one.
+pub fn shape_hats(k1: f64, k2: f64, k3: f64) -> [(usize, f64); 4] {
+    let hx = hats_1d(k3 / k1, 0.0, X_NODES);
+    let hy = hats_1d(k2 / k1, 0.5, Y_NODES);
+    let mut out = [(0, 0.0); 4];
+    for (a, &(ix, wx)) in hx.iter().enumerate() {
+        for (b, &(iy, wy)) in hy.iter().enumerate() {
+            out[2 * a + b] = (ix * Y_NODES + iy, wx * wy);
+        }
     }
+    out
 }
 
 /// Accumulated pieces of a Fisher matrix under C = C_G + U W U^T: the Gaussian part F
@@ -407,9 +422,10 @@ mod tests {
 
     #[test]
     fn shape_hats_are_a_partition_of_unity() {
-        for x in [0.0, 0.2, 0.5, 0.7, 1.0] {
-            let h = shape_hats(x);
-            assert!((h[0].1 + h[1].1 - 1.0).abs() < 1e-15);
+        for (k2, k3) in [(1.0, 1.0), (0.7, 0.3), (0.5, 0.5), (0.9, 0.05)] {
+            let h = shape_hats(1.0, k2, k3);
+            assert!((h.iter().map(|x| x.1).sum::<f64>() - 1.0).abs() < 1e-14);
+            assert!(h.iter().all(|x| x.0 < SHAPE_MODES));
         }
     }
 }

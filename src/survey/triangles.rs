@@ -31,7 +31,8 @@ pub struct TriPoint {
 /// Points sharing a largest side: they enter the sum once k_max >= `k_cum`.
 #[derive(Debug, Clone)]
 pub struct TriRow {
-    /// The largest side's upper bin edge (exact rows) or the node (continuum rows), 1/Mpc.
+    /// The largest side's upper bin edge (exact rows) or the upper edge of the k1 segment
+    /// between two k_max values (continuum rows), 1/Mpc.
     pub k_cum: f64,
     /// The points.
     pub points: Vec<TriPoint>,
@@ -57,12 +58,12 @@ pub struct TriangleRule {
 impl Default for TriangleRule {
     fn default() -> Self {
         Self {
-            exact_bins: Some(12),
-            k1_panel_mpc: 0.015,
+            exact_bins: Some(8),
+            k1_panel_mpc: 0.025,
             k1_nodes: 4,
-            k3_log_ratio: 1.8,
+            k3_log_ratio: 2.2,
             k3_nodes: 4,
-            k2_nodes: 5,
+            k2_nodes: 4,
         }
     }
 }
@@ -82,8 +83,12 @@ pub fn triangle_rows(
     let mut rows = exact_rows(kmin, dk, nk, n_exact, volume);
     if rule.exact_bins.is_some() {
         let k_c = kmin + n_exact as f64 * dk;
-        if k_c < k_top {
-            rows.extend(continuum_rows(rule, k_c, k_top, breaks, volume));
+        // The continuum stops where the bins do: the last bin edge below each k_max.
+        let snap = |k: f64| kmin + ((k - kmin) / dk * (1.0 + 1e-12)).floor().max(0.0) * dk;
+        let top = snap(k_top);
+        let snapped: Vec<f64> = breaks.iter().map(|&b| snap(b)).collect();
+        if k_c < top {
+            rows.extend(continuum_rows(rule, k_c, top, &snapped, volume));
         }
     }
     rows
@@ -186,7 +191,8 @@ fn continuum_rows(
                         });
                     }
                 }
-                rows.push(TriRow { k_cum: k1, points });
+                // The row enters at the k_max of its segment (its upper edge).
+                rows.push(TriRow { k_cum: b, points });
             }
         }
     }

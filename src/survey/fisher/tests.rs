@@ -297,3 +297,162 @@ fn fisher_is_psd_and_marginal_exceeds_conditional() {
     // More k means more information.
     assert!(fc.total[1][2].get(0, 0) > fc.total[0][2].get(0, 0));
 }
+
+fn one_bin(real_space: bool, cov: CovarianceModel) -> Survey {
+    let mut sv = Survey::quick(2.0, 1.0, 5e-4, 2.0, real_space, 0.6736).unwrap();
+    sv.covariance = cov;
+    sv
+}
+
+fn all_shapes(prim: Primordial) -> Vec<ShapeInput> {
+    [Shape::Local, Shape::Equilateral, Shape::Orthogonal]
+        .into_iter()
+        .map(|s| ShapeInput::new(s, prim))
+        .collect()
+}
+
+/// The triangle quadrature (exact first bins plus continuum) against the exact triangle
+/// sum, Gaussian covariance, redshift space, all shapes and probes, nuisances
+/// marginalized, at k_max = 30 and 48 k_f: within 1% (measured: 0.007%).
+#[test]
+fn quadrature_matches_exact_triangle_sum() {
+    let s = setup();
+    let shapes = all_shapes(s.prim);
+    let sv = one_bin(false, CovarianceModel::Gaussian);
+    let run = |exact: bool| {
+        let st = SurveySettings {
+            triangles: TriangleRule {
+                exact_bins: if exact {
+                    None
+                } else {
+                    TriangleRule::default().exact_bins
+                },
+                ..TriangleRule::default()
+            },
+            ..SurveySettings::default()
+        };
+        survey_fisher(&sv, &s.power, &s.bg, &shapes, &[0.1, 0.16], &st)
+    };
+    let (q, e) = (run(false), run(true));
+    let mut worst: f64 = 0.0;
+    for ik in 0..2 {
+        for probe in 1..3 {
+            for is in 0..3 {
+                let (a, b) = (
+                    q.total[ik][probe].sigma_conditional(is),
+                    e.total[ik][probe].sigma_conditional(is),
+                );
+                worst = worst.max((a / b - 1.0).abs());
+            }
+        }
+    }
+    println!(
+        "quadrature vs exact triangle sum: worst sigma difference {:.3}%",
+        100.0 * worst
+    );
+    assert!(worst < 0.01, "{worst}");
+}
+
+/// Saturation under the theoretical error (Baldauf, Mirbabayi, Simonovic & Zaldarriaga
+/// 2016: the information stops growing once the envelope passes the Gaussian error):
+/// from k_max = 0.3 to 0.5 Mpc^-1 the Gaussian bispectrum information on the equilateral
+/// amplitude keeps growing roughly like the triangle count, the realistic one barely.
+#[test]
+fn theory_error_saturates_bispectrum_information() {
+    let s = setup();
+    let shapes = [ShapeInput::new(Shape::Equilateral, s.prim)];
+    let info = |cov: CovarianceModel| -> (f64, f64) {
+        let mut sv = one_bin(true, cov);
+        sv.kmax_tree_mpc = 1.0;
+        let fc = survey_fisher(
+            &sv,
+            &s.power,
+            &s.bg,
+            &shapes,
+            &[0.3, 0.5],
+            &SurveySettings::default(),
+        );
+        (fc.total[0][1].get(0, 0), fc.total[1][1].get(0, 0))
+    };
+    let (g3, g5) = info(CovarianceModel::Gaussian);
+    let (r3, r5) = info(CovarianceModel::Realistic);
+    println!(
+        "B information gain from k_max 0.3 to 0.5 Mpc^-1: gaussian x{:.2}, realistic x{:.2}",
+        g5 / g3,
+        r5 / r3
+    );
+    assert!(g5 / g3 > 1.5, "gaussian gain {}", g5 / g3);
+    assert!(
+        r5 / r3 - 1.0 < 0.5 * (g5 / g3 - 1.0),
+        "realistic gain {} vs gaussian {}",
+        r5 / r3,
+        g5 / g3
+    );
+    assert!(r3 < g3);
+}
+
+/// Woodbury through the engine: the realistic P information never exceeds the Gaussian
+/// one, and P+B (whitened bispectrum) never falls below B alone or P alone in
+/// information (the same model for both; marginalized f_NL block, conditional sigma).
+#[test]
+fn realistic_probes_are_ordered() {
+    let s = setup();
+    let shapes = all_shapes(s.prim);
+    let g = survey_fisher(
+        &one_bin(false, CovarianceModel::Gaussian),
+        &s.power,
+        &s.bg,
+        &shapes,
+        &[0.15],
+        &SurveySettings::default(),
+    );
+    let r = survey_fisher(
+        &one_bin(false, CovarianceModel::Realistic),
+        &s.power,
+        &s.bg,
+        &shapes,
+        &[0.15],
+        &SurveySettings::default(),
+    );
+    for is in [0, 2] {
+        assert!(r.total[0][0].get(is, is) <= g.total[0][0].get(is, is) * (1.0 + 1e-9));
+    }
+    for is in 0..3 {
+        let (p, b, pb) = (
+            r.total[0][0].sigma_conditional(is),
+            r.total[0][1].sigma_conditional(is),
+            r.total[0][2].sigma_conditional(is),
+        );
+        println!("realistic shape {is}: P {p:.3} B {b:.3} P+B {pb:.3}");
+        assert!(pb <= b * 1.001 && pb <= p * 1.001, "{p} {b} {pb}");
+        assert!(r.total[0][1].sigma_conditional(is) >= g.total[0][1].sigma_conditional(is));
+    }
+}
+
+/// The orthogonal template's scale-dependent bias ~ (k / k_S) / M(k) with the tracer's
+/// k_S (0.1-0.4 Mpc^-1) makes its P-only constraint much weaker than the local one for a
+/// b1 = 2 tracer: published P-only forecasts put it one to two orders of magnitude above
+/// sigma(f_NL^loc) (from memory; the ratio depends on k_S and k_max; loose check
+/// 5-100).
+#[test]
+fn orthogonal_over_local_power_spectrum_ratio() {
+    let s = setup();
+    let shapes = [
+        ShapeInput::new(Shape::Local, s.prim),
+        ShapeInput::new(Shape::Orthogonal, s.prim),
+    ];
+    let mut sv = Survey::quick(10.0, 1.0, 1e-3, 2.0, true, 0.6736).unwrap();
+    sv.covariance = CovarianceModel::Gaussian;
+    let fc = survey_fisher(
+        &sv,
+        &s.power,
+        &s.bg,
+        &shapes,
+        &[0.1 * s.h],
+        &SurveySettings::default(),
+    );
+    let ratio = fc.total[0][0].sigma_conditional(1) / fc.total[0][0].sigma_conditional(0);
+    let ks = fc.bins[0].responses[0].k_s_mpc[1];
+    println!("P only, b1 = 2, z = 1: sigma(orth)/sigma(local) = {ratio:.1}, k_S = {ks:.3} Mpc^-1");
+    assert!(ratio > 5.0 && ratio < 100.0, "{ratio}");
+}
