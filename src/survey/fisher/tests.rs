@@ -456,3 +456,79 @@ fn orthogonal_over_local_power_spectrum_ratio() {
     println!("P only, b1 = 2, z = 1: sigma(orth)/sigma(local) = {ratio:.1}, k_S = {ks:.3} Mpc^-1");
     assert!(ratio > 5.0 && ratio < 100.0, "{ratio}");
 }
+
+/// What each new bispectrum term and fix does to sigma on the two demo surveys (Gaussian
+/// covariance, k_max 0.2 h/Mpc, single-shape sigma): prints a table. Run with
+/// `cargo test --release --lib term_effects -- --ignored --nocapture` (about a minute).
+#[test]
+#[ignore]
+fn term_effects_on_demo_surveys() {
+    use crate::input::{Source, parse_toml};
+    use crate::survey::SurveyFile;
+    use crate::survey::kernels::TermSwitches;
+    let s = setup();
+    let growth = crate::cosmology::Growth::new(&Cosmology::planck2018());
+    let shapes = all_shapes(s.prim);
+    for (name, text) in [
+        (
+            "wide",
+            include_str!("../../../surveys/survey_wide_spectro.toml"),
+        ),
+        (
+            "deep",
+            include_str!("../../../surveys/survey_deep_photo.toml"),
+        ),
+    ] {
+        let src = Source::from_text(name, text);
+        let file: SurveyFile = parse_toml(&src).unwrap();
+        let mut sv = file.survey.resolve(&src, &s.bg, &growth).unwrap();
+        sv.covariance = CovarianceModel::Gaussian;
+        let all = TermSwitches::default();
+        let variants = [
+            ("all terms", all),
+            (
+                "no RSD-velocity Delta b",
+                TermSwitches {
+                    rsd_velocity_bias: false,
+                    ..all
+                },
+            ),
+            (
+                "no b_phi-delta",
+                TermSwitches {
+                    bias_phi_delta: false,
+                    ..all
+                },
+            ),
+            (
+                "no shift",
+                TermSwitches {
+                    shift: false,
+                    ..all
+                },
+            ),
+            (
+                "old shot damping",
+                TermSwitches {
+                    shot_damping: false,
+                    ..all
+                },
+            ),
+        ];
+        for (label, terms) in variants {
+            let st = SurveySettings {
+                terms,
+                ..SurveySettings::default()
+            };
+            let fc = survey_fisher(&sv, &s.power, &s.bg, &shapes, &[0.2 * s.h], &st);
+            let row: Vec<String> = (1..3)
+                .flat_map(|p| (0..3).map(move |i| (p, i)).collect::<Vec<_>>())
+                .map(|(p, i)| format!("{:.4}", fc.total[0][p].sigma_conditional(i)))
+                .collect();
+            println!(
+                "{name} {label}: B (loc, eq, orth), P+B (loc, eq, orth) = {}",
+                row.join(" ")
+            );
+        }
+    }
+}
