@@ -23,7 +23,7 @@ use crate::survey::kernels::{BispectrumModel, BispectrumTracer, TermSwitches};
 use crate::survey::layout::Layout;
 pub use crate::survey::linalg::MAX_TRACERS;
 use crate::survey::power::{PowerBin, PowerTracer};
-pub use crate::survey::response::{ShapeInput, TracerResponse, delta_b};
+pub use crate::survey::response::{ShapeInput, SigmaTable, TracerResponse, delta_b};
 use crate::survey::spec::{RedshiftBin, Survey};
 use crate::survey::triangles::{TriangleRule, triangle_rows};
 
@@ -145,8 +145,10 @@ pub fn survey_fisher(
     settings: &SurveySettings,
 ) -> SurveyForecast {
     let shape_names: Vec<String> = shapes.iter().map(|s| s.name.clone()).collect();
+    let table = SigmaTable::new(power);
     let run_bin = |ib: usize| {
         bin_fisher(
+            &table,
             survey,
             ib,
             power,
@@ -208,6 +210,7 @@ pub fn survey_fisher(
 
 #[allow(clippy::too_many_arguments)] // one bin of the engine needs all of these
 fn bin_fisher(
+    table: &SigmaTable<'_>,
     survey: &Survey,
     ib: usize,
     power: &LinearPower,
@@ -225,7 +228,7 @@ fn bin_fisher(
         .iter()
         .map(|&k| survey.kmax_for_bin(k, &bin, power).max(kmin))
         .collect();
-    let k_nl = crate::survey::spec::k_nonlinear(power, z, survey.sigma_nl);
+    let k_nl = table.k_nonlinear(z, survey.sigma_nl);
     let f = if survey.real_space {
         0.0
     } else {
@@ -240,7 +243,7 @@ fn bin_fisher(
         .iter()
         .map(|t| {
             let b = t.bins[ib];
-            TracerResponse::new(power, shapes, b.b1, b.b2, b.b_phi, z)
+            TracerResponse::new(table, power, shapes, b.b1, b.b2, b.b_phi, z)
         })
         .collect();
     let ptracers: Vec<PowerTracer> = survey

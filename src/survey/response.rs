@@ -41,7 +41,7 @@
 
 use crate::constants::DELTA_C;
 use crate::cosmology::{LinearPower, Primordial};
-use crate::numerics::GaussLegendre;
+use crate::numerics::{CubicSpline, GaussLegendre};
 use crate::shapes::Shape;
 
 /// A primordial shape as the survey engine sees it: its bispectrum and the squeezed
@@ -88,23 +88,81 @@ impl ShapeInput {
 /// Below this squeezed index the response is treated as the local one (k_S drops out).
 const LOCAL_INDEX: f64 = 1e-6;
 
+/// sigma(R, z) of the linear matter power with a top-hat window, tabulated once at z = 0
+/// on a logarithmic grid of R (0.05-300 Mpc; natural cubic spline in ln R, ln sigma) and
+/// scaled by the linear growth D(z)/D(0).
+pub struct SigmaTable<'a> {
+    power: &'a LinearPower,
+    spline: CubicSpline,
+}
+
+impl<'a> SigmaTable<'a> {
+    /// Tabulates sigma(R, 0): one pass over k shared by all radii.
+    pub fn new(power: &'a LinearPower) -> Self {
+        let n_r = 120;
+        let (r_lo, r_hi) = (0.05_f64.ln(), 300.0_f64.ln());
+        let ln_r: Vec<f64> = (0..n_r)
+            .map(|i| r_lo + (r_hi - r_lo) * i as f64 / (n_r - 1) as f64)
+            .collect();
+        let gl = GaussLegendre::new(12);
+        let (lo, hi) = ((1e-6_f64).ln(), (400.0 / 0.05_f64).ln());
+        let n_panels = 800;
+        let d = (hi - lo) / n_panels as f64;
+        let mut acc = vec![0.0; n_r];
+        for ip in 0..n_panels {
+            let a = lo + ip as f64 * d;
+            let (xs, ws) = gl.mapped(a, a + d);
+            for (&lk, &w) in xs.iter().zip(&ws) {
+                let k = lk.exp();
+                let v = w * k * k * k * power.p_mpc(k, 0.0);
+                for (s, &lr) in acc.iter_mut().zip(&ln_r) {
+                    let wt = crate::cosmology::power::top_hat(k * lr.exp());
+                    *s += v * wt * wt;
+                }
+            }
+        }
+        let ln_s: Vec<f64> = acc
+            .iter()
+            .map(|s| 0.5 * (s / (2.0 * std::f64::consts::PI * std::f64::consts::PI)).ln())
+            .collect();
+        Self {
+            power,
+            spline: CubicSpline::new(ln_r, ln_s),
+        }
+    }
+
+    /// sigma(R, z), R in Mpc (within the tabulated range).
+    pub fn sigma(&self, r_mpc: f64, z: f64) -> f64 {
+        self.spline.eval(r_mpc.ln()).exp() * self.power.growth().d_norm0(z)
+    }
+
+    /// The radius (Mpc) where sigma(R, z) = target (bisection in ln R; clamped to the
+    /// table).
+    pub fn radius_for(&self, target: f64, z: f64) -> f64 {
+        let (mut lo, mut hi) = (0.05_f64.ln(), 300.0_f64.ln());
+        for _ in 0..60 {
+            let mid = 0.5 * (lo + hi);
+            if self.sigma(mid.exp(), z) > target {
+                lo = mid;
+            } else {
+                hi = mid;
+            }
+        }
+        (0.5 * (lo + hi)).exp()
+    }
+
+    /// The wavenumber (1/Mpc) at which sigma(R = pi / (2 k), z) reaches `sigma_nl`.
+    pub fn k_nonlinear(&self, z: f64, sigma_nl: f64) -> f64 {
+        std::f64::consts::FRAC_PI_2 / self.radius_for(sigma_nl, z)
+    }
+}
+
 /// The Lagrangian radius (Mpc) of a tracer of linear bias `b1` at redshift `z`: sigma(R_L,
 /// z) = delta_c / nu with b1 = 1 + (nu^2 - 1) / delta_c (Press-Schechter
 /// peak-background split; Mo & White 1996), nu >= 0.5.
-pub fn lagrangian_radius(power: &LinearPower, b1: f64, z: f64) -> f64 {
+pub fn lagrangian_radius(table: &SigmaTable<'_>, b1: f64, z: f64) -> f64 {
     let nu2 = (1.0 + DELTA_C * (b1 - 1.0)).max(0.25);
-    let target = DELTA_C / nu2.sqrt();
-    let (mut lo, mut hi) = (0.05_f64.ln(), 200.0_f64.ln());
-    // sigma falls with R: bisection in ln R.
-    for _ in 0..40 {
-        let mid = 0.5 * (lo + hi);
-        if power.sigma_r(mid.exp(), z) > target {
-            lo = mid;
-        } else {
-            hi = mid;
-        }
-    }
-    (0.5 * (lo + hi)).exp()
+    table.radius_for(DELTA_C / nu2.sqrt(), z)
 }
 
 /// sigma^2_{-Delta/2}(R) / sigma^2(R) of the linear matter power with a top-hat of radius
@@ -155,6 +213,7 @@ pub struct TracerResponse {
 impl TracerResponse {
     /// The response of a tracer (b1, b2, p) at redshift z to `shapes`.
     pub fn new(
+        table: &SigmaTable<'_>,
         power: &LinearPower,
         shapes: &[ShapeInput],
         b1: f64,
@@ -166,7 +225,7 @@ impl TracerResponse {
             .iter()
             .any(|s| s.has_response() && s.squeezed_index.abs() >= LOCAL_INDEX);
         let r_l = if need_r {
-            lagrangian_radius(power, b1, z)
+            lagrangian_radius(table, b1, z)
         } else {
             f64::NAN
         };
@@ -242,7 +301,16 @@ mod tests {
     fn local_scale_dependent_bias_goes_as_k_minus_two() {
         let (power, prim) = setup();
         let shape = ShapeInput::new(Shape::Local, prim);
-        let resp = TracerResponse::new(&power, std::slice::from_ref(&shape), 2.0, 0.0, 3.0, 1.0);
+        let table = SigmaTable::new(&power);
+        let resp = TracerResponse::new(
+            &table,
+            &power,
+            std::slice::from_ref(&shape),
+            2.0,
+            0.0,
+            3.0,
+            1.0,
+        );
         let (k1, k2) = (1e-4, 2e-4);
         let slope = (delta_b(&shape, &resp, 0, k2, 1.0, &power)
             / delta_b(&shape, &resp, 0, k1, 1.0, &power))
@@ -255,6 +323,7 @@ mod tests {
         let d = power.growth().d_md(1.0);
         let expect = 3.0 * 1.0 * 1.686 * c.omega_m() * h0 * h0 / (k1 * k1 * d);
         let resp = TracerResponse::new(
+            &table,
             &power,
             std::slice::from_ref(&shape),
             2.0,
@@ -265,7 +334,15 @@ mod tests {
         let got = delta_b(&shape, &resp, 0, k1, 1.0, &power);
         assert!((got / expect - 1.0).abs() < 1e-3, "{got} {expect}");
         let eq = ShapeInput::new(Shape::Equilateral, prim);
-        let r = TracerResponse::new(&power, std::slice::from_ref(&eq), 2.0, 0.0, 3.0, 1.0);
+        let r = TracerResponse::new(
+            &table,
+            &power,
+            std::slice::from_ref(&eq),
+            2.0,
+            0.0,
+            3.0,
+            1.0,
+        );
         assert_eq!(delta_b(&eq, &r, 0, k1, 1.0, &power), 0.0);
     }
 
@@ -276,13 +353,22 @@ mod tests {
     fn tracer_scale_is_that_of_a_halo() {
         let (power, prim) = setup();
         let orth = ShapeInput::new(Shape::Orthogonal, prim);
-        let r2 = lagrangian_radius(&power, 2.0, 1.0);
-        let r3 = lagrangian_radius(&power, 3.0, 1.0);
+        let table = SigmaTable::new(&power);
+        let r2 = lagrangian_radius(&table, 2.0, 1.0);
+        let r3 = lagrangian_radius(&table, 3.0, 1.0);
         assert!(r3 > r2 && r2 > 1.0 && r2 < 10.0, "R_L {r2} {r3}");
-        // sigma(R_L) = delta_c / nu.
+        // sigma(R_L) = delta_c / nu, against the direct integral of LinearPower::sigma_r.
         let nu = (1.0 + 1.686_f64).sqrt();
-        assert!((power.sigma_r(r2, 1.0) / (1.686 / nu) - 1.0).abs() < 1e-6);
-        let resp = TracerResponse::new(&power, std::slice::from_ref(&orth), 2.0, 0.0, 3.0, 1.0);
+        assert!((power.sigma_r(r2, 1.0) / (1.686 / nu) - 1.0).abs() < 1e-4);
+        let resp = TracerResponse::new(
+            &table,
+            &power,
+            std::slice::from_ref(&orth),
+            2.0,
+            0.0,
+            3.0,
+            1.0,
+        );
         let ks = resp.k_s_mpc[0];
         println!("b1 = 2 at z = 1: R_L = {r2:.2} Mpc, k_S(orthogonal) = {ks:.3} Mpc^-1");
         assert!(ks > 0.08 && ks < 0.4, "k_S {ks}");
@@ -305,7 +391,16 @@ mod tests {
     fn response_is_cut_beyond_the_tracer_scale() {
         let (power, prim) = setup();
         let orth = ShapeInput::new(Shape::Orthogonal, prim);
-        let resp = TracerResponse::new(&power, std::slice::from_ref(&orth), 2.0, 0.0, 3.0, 1.0);
+        let table = SigmaTable::new(&power);
+        let resp = TracerResponse::new(
+            &table,
+            &power,
+            std::slice::from_ref(&orth),
+            2.0,
+            0.0,
+            3.0,
+            1.0,
+        );
         let ks = resp.k_s_mpc[0];
         let m = power.m_factor(0.5 * ks, 1.0);
         assert!(resp.alpha(&orth, 0, 0.5 * ks, m) < 0.0);

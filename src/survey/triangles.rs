@@ -58,7 +58,7 @@ pub struct TriangleRule {
 impl Default for TriangleRule {
     fn default() -> Self {
         Self {
-            exact_bins: Some(8),
+            exact_bins: Some(5),
             k1_panel_mpc: 0.025,
             k1_nodes: 4,
             k3_log_ratio: 2.2,
