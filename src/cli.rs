@@ -232,6 +232,9 @@ pub struct SurveyArgs {
     /// transfer function (a matter-only solve, about a second).
     #[arg(long, value_enum, value_name = "MODEL", default_value_t = crate::scenario::LinearPowerChoice::EisensteinHu)]
     pub linear_power: crate::scenario::LinearPowerChoice,
+    /// Covariance model (default: the survey file's `covariance`, else realistic).
+    #[arg(long, value_enum, value_name = "MODEL")]
+    pub covariance: Option<crate::survey::CovarianceModel>,
     /// Worker threads (1 runs the serial path; at most 4 per core).
     #[arg(long, value_name = "N")]
     pub threads: Option<usize>,

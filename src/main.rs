@@ -190,6 +190,7 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                 probes,
                 shapes,
                 linear_power: a.linear_power,
+                covariance: a.covariance,
                 settings,
             };
             progress.step(

@@ -134,6 +134,9 @@ struct ScenarioTable {
     shell_width_mpc: Option<Spanned<f64>>,
     #[serde(default = "yes")]
     damping: bool,
+    /// Survey covariance model for every survey ("realistic" or "gaussian"); overrides
+    /// the survey files' `covariance`.
+    covariance: Option<crate::survey::CovarianceModel>,
 }
 
 fn yes() -> bool {
@@ -458,7 +461,11 @@ pub fn resolve_scenario(src: &Source, files: &dyn FileResolver) -> Result<Scenar
             .map_err(|e| relocate(e, src.at(&s.file)))?;
         let text = with_overrides(text, "survey", s.set.as_ref(), src.at(&s.file))?;
         let sf: SurveyFile = parse_toml(&text)?;
-        surveys.push(sf.survey.resolve(&text, &bg, &growth)?);
+        let mut sv = sf.survey.resolve(&text, &bg, &growth)?;
+        if let Some(cv) = t.covariance {
+            sv.covariance = cv;
+        }
+        surveys.push(sv);
     }
     let linear_power = match &t.linear_power {
         Some(v) => {

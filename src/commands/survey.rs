@@ -12,7 +12,7 @@ use crate::report::{Report, num};
 use crate::scenario::LinearPowerChoice;
 use crate::shapes::Shape;
 use crate::survey::fisher::{Probe, ShapeInput, SurveyForecast, SurveySettings, survey_fisher};
-use crate::survey::{Survey, SurveyFile};
+use crate::survey::{CovarianceModel, Survey, SurveyFile};
 
 /// Typed options of `ngreach survey`.
 #[derive(Debug, Clone)]
@@ -25,6 +25,8 @@ pub struct SurveyOptions {
     pub shapes: Vec<Shape>,
     /// Linear matter power (`--linear-power`).
     pub linear_power: LinearPowerChoice,
+    /// Covariance model (`--covariance`; None: the survey's own).
+    pub covariance: Option<CovarianceModel>,
     /// Engine settings.
     pub settings: SurveySettings,
 }
@@ -145,18 +147,39 @@ pub fn survey_report(
         .map(|&s| ShapeInput::new(s, prim))
         .collect();
     let kmax_mpc: Vec<f64> = sorted.iter().map(|k| k * h).collect();
+    let mut survey = survey.clone();
+    if let Some(cv) = opts.covariance {
+        survey.covariance = cv;
+    }
+    let survey = &survey;
     let fc = survey_fisher(survey, &power, &bg, &inputs, &kmax_mpc, &opts.settings);
     let mut r = Report::new("survey");
+    let cov = survey.covariance;
     r.notes = vec![
         "k in h/Mpc; sigma(f_NL) in the CMB convention (growth normalized to a in matter domination)".into(),
-        "sigma_conditional: other shapes fixed; sigma_marginal: marginalized over the other shapes listed; both after marginalizing the per-bin nuisances".into(),
-        "P: continuous Fisher integral from k_min; B: tree level, triangle bins of width dk = k_f, full orientation dependence; P+B: shared nuisances, P-B cross-covariance neglected (Gaussian level)".into(),
+        "sigma_conditional: other shapes fixed (the single-shape constraint); sigma_marginal: marginalized over the other shapes listed; both after marginalizing the per-bin nuisances".into(),
+        cov.describe().into(),
+        kmax_note(survey, h),
+        "P: continuous Fisher integral from k_min; B: tree level with the second-order non-Gaussian bias, exact triangle sum over the first bins plus continuum quadrature, full orientation dependence; P+B: shared nuisances".into(),
+        "scale-dependent bias referenced to each tracer's own scale k_S (peak-background split); the squeezed response of shapes with Delta > 0 is cut at k >= k_S".into(),
         match opts.linear_power {
             LinearPowerChoice::EisensteinHu => "linear power: Eisenstein-Hu (1998) normalized from A_s",
             LinearPowerChoice::Boltzmann => "linear power: the Boltzmann solver's z = 0 matter transfer function, normalized from A_s",
         }
         .into(),
     ];
+    for w in &fc.warnings {
+        r.notes.push(format!("warning: {w}"));
+    }
+    r.summary
+        .push(("covariance".into(), Value::String(cov.label().into())));
+    r.summary.push((
+        "kmax_meaning".into(),
+        Value::String(kmax_meaning(survey).into()),
+    ));
+    if !fc.warnings.is_empty() {
+        r.summary.push(("warnings".into(), json!(fc.warnings)));
+    }
     r.inputs = json!({
         "cosmology": super::cosmology_json(c, cosmo_source),
         "survey": survey_json(survey, h),
@@ -164,6 +187,8 @@ pub fn survey_report(
         "probes": opts.probes.iter().map(|p| p.label()).collect::<Vec<_>>(),
         "shapes": opts.shapes.iter().map(|s| s.name()).collect::<Vec<_>>(),
         "settings": opts.settings,
+        "covariance": cov.label(),
+        "kmax_meaning": kmax_meaning(survey),
         "linear_power": power_meta,
     });
     r.columns = [
@@ -201,9 +226,38 @@ pub fn survey_report(
     ));
     r.json_extra.push((
         "cross_covariance".into(),
-        "P-B cross-covariance neglected (Gaussian level)".into(),
+        match cov {
+            CovarianceModel::Gaussian => "P-B cross-covariance neglected (gaussian covariance)",
+            CovarianceModel::Realistic => {
+                "leading P-B cross-covariance 2 P B / N_k, through the whitened bispectrum (realistic covariance)"
+            }
+        }
+        .into(),
     ));
     Ok((r, fc))
+}
+
+/// What the `kmax_h_mpc` values mean for a survey.
+pub fn kmax_meaning(s: &Survey) -> &'static str {
+    match s.kmax_rule {
+        crate::survey::KmaxRule::Growth => {
+            "k_max(z = 0): each bin uses k_max(0) D(0)/D(z), capped at kmax_tree_h_mpc (per_bin kmax_used_h_mpc)"
+        }
+        crate::survey::KmaxRule::Sigma => {
+            "k_max requested: each bin uses min(k_max, its sigma-rule scale, kmax_tree_h_mpc) (per_bin kmax_used_h_mpc)"
+        }
+        crate::survey::KmaxRule::Fixed => {
+            "k_max in every bin, capped at kmax_tree_h_mpc (per_bin kmax_used_h_mpc)"
+        }
+    }
+}
+
+fn kmax_note(s: &Survey, h: f64) -> String {
+    format!(
+        "kmax_h_mpc = {}; tree-level cap {} h/Mpc",
+        kmax_meaning(s),
+        crate::report::format_sig(s.kmax_tree_mpc / h, 3)
+    )
 }
 
 /// Index of a probe in the engine's [P, B, P+B] arrays.
@@ -223,6 +277,8 @@ fn survey_json(s: &Survey, h: f64) -> Value {
         "velocity_dispersion_km_s": s.velocity_dispersion_km_s,
         "kmax_rule": s.kmax_rule,
         "sigma_nl": s.sigma_nl,
+        "kmax_tree_h_mpc": s.kmax_tree_mpc / h,
+        "covariance": s.covariance.label(),
         "real_space": s.real_space,
         "nuisance": s.nuisance,
         "priors": s.priors,
@@ -268,6 +324,13 @@ fn per_bin_json(fc: &SurveyForecast, probes: &[Probe], kmax_h: &[f64], h: f64) -
                 json!({
                     "z_min": b.bin.z_min, "z_max": b.bin.z_max, "z_eff": b.bin.z_eff,
                     "kmin_h_mpc": b.kmin_mpc / h, "kf_h_mpc": b.kf_mpc / h,
+                    "kmax_used_h_mpc": b.kmax_used_mpc.iter().map(|k| k / h).collect::<Vec<_>>(),
+                    "k_nonlinear_h_mpc": b.k_nonlinear_mpc / h,
+                    "responses": b.responses.iter().map(|t| json!({
+                        "b_phi": t.b_phi, "b_phi_delta": t.b_phi_delta,
+                        "r_lagrangian_mpc_over_h": num(t.r_lagrangian_mpc * h),
+                        "k_s_h_mpc": t.k_s_mpc.iter().map(|k| num(k / h)).collect::<Vec<_>>(),
+                    })).collect::<Vec<_>>(),
                     "rows": rows,
                 })
             })

@@ -30,7 +30,15 @@ pub fn terminal_summary(r: &RunResult) -> String {
         }
     };
     for s in &r.surveys {
-        out.push_str(&format!("\n{}\n", s.survey.name));
+        out.push_str(&format!(
+            "\n{} (covariance: {}; k_max: {})\n",
+            s.survey.name,
+            s.forecast.covariance.label(),
+            crate::commands::survey::kmax_meaning(&s.survey)
+        ));
+        for w in &s.forecast.warnings {
+            out.push_str(&format!("warning: {w}\n"));
+        }
         let mut header = format!("{:<12}", "shape");
         for c in &r.cmb {
             header.push_str(&format!("{:>10}", short(&c.experiment.name, 9)));

@@ -39,10 +39,16 @@ pub fn latex_table(r: &RunResult) -> String {
         );
         t.push_str("\\begin{table}\n\\centering\n\\small\n");
         t.push_str(&format!(
-            "\\caption{{{}: forecast marginalized $\\sigma(f_{{\\rm NL}})$ (CMB convention). CMB at $\\ell_{{\\max}} = {}$ (each field capped at the experiment's own $\\ell_{{\\max}}$); survey probes at $k_{{\\max}} = {}\\,h\\,{{\\rm Mpc}}^{{-1}}$. $k_\\times$: the $k_{{\\max}}$ [$h\\,{{\\rm Mpc}}^{{-1}}$] at which the survey's {} beats each experiment.}}\n",
+            "\\caption{{{}: forecast marginalized $\\sigma(f_{{\\rm NL}})$ (CMB convention). CMB at $\\ell_{{\\max}} = {}$ (each field capped at the experiment's own $\\ell_{{\\max}}$); survey probes at $k_{{\\max}} = {}\\,h\\,{{\\rm Mpc}}^{{-1}}$ ({} covariance; {}). $k_\\times$: the $k_{{\\max}}$ [$h\\,{{\\rm Mpc}}^{{-1}}$] at which the survey's {} beats each experiment.}}\n",
             tex(&s.survey.name),
             sc.lmax.last().copied().unwrap_or(0),
             format_sig(kx, 3),
+            s.forecast.covariance.label(),
+            if s.survey.kmax_scales_with_z() {
+                "$k_{\\max}(z = 0)$, each bin capped at the tree-level limit"
+            } else {
+                "each bin capped at the tree-level limit"
+            },
             head.map_or("--", |p| p.label()),
         ));
         t.push_str(&format!(

@@ -135,17 +135,21 @@ pub fn summary_json(r: &RunResult) -> Value {
                         let fsv = &s.forecast.total[ik][pidx(p)];
                         let j = fc.combine(fsv);
                         let (jc, jm) = sigmas(&j);
-                        let (_, cm) = sigmas(fc);
-                        let (_, sm) = sigmas(fsv);
+                        let (cc, cm) = sigmas(fc);
+                        let (sc_, sm) = sigmas(fsv);
                         for (is, shape) in shapes.iter().enumerate() {
                             let imp = improvement(&[cm[is], sm[is]], jm[is]);
                             joint_rows.push(json!({"experiment": c.experiment.name, "cmb_fields": c.forecast.field_sets[fs].label(), "survey": s.survey.name,
                                 "probe": p.label(), "lmax": lm, "kmax_h_mpc": k, "shape": shape, "sigma_conditional": num(jc[is]),
                                 "sigma_marginal": num(jm[is]), "sigma_cmb": num(cm[is]), "sigma_survey": num(sm[is]), "improvement": num(imp)}));
                             if m + 1 == c.forecast.lmax.len() && ik + 1 == sc.kmax_h_mpc.len() {
+                                // Headline: single-shape sigma (other f_NL fixed, nuisances
+                                // marginalized); marginalized over the other shapes beside it.
+                                let imp_single = improvement(&[cc[is], sc_[is]], jc[is]);
                                 rows.push(json!({"experiment": c.experiment.name, "survey": s.survey.name, "probe": p.label(), "shape": shape,
-                                    "lmax": lm, "kmax_h_mpc": k, "sigma_cmb": num(cm[is]), "sigma_survey": num(sm[is]), "sigma_joint": num(jm[is]),
-                                    "improvement": num(imp)}));
+                                    "lmax": lm, "kmax_h_mpc": k, "sigma_cmb": num(cc[is]), "sigma_survey": num(sc_[is]), "sigma_joint": num(jc[is]),
+                                    "sigma_cmb_marginal": num(cm[is]), "sigma_survey_marginal": num(sm[is]), "sigma_joint_marginal": num(jm[is]),
+                                    "improvement": num(imp_single), "covariance": s.forecast.covariance.label()}));
                             }
                         }
                     }
@@ -168,7 +172,9 @@ pub fn summary_json(r: &RunResult) -> Value {
             "sigma_conditional: other shapes fixed; sigma_marginal: marginalized over the other shapes; survey nuisances marginalized per bin",
             "CMB in comparisons: T+E at the largest l_max of the grid; crossover on marginalized sigma, ln-ln interpolation in k_max",
             "joint = CMB + survey Fisher matrices (independent probes); improvement = best single-probe sigma / joint sigma",
-            "P-B cross-covariance neglected (Gaussian level)"
+            "rows: sigma_cmb, sigma_survey, sigma_joint are single-shape constraints (other f_NL fixed, nuisances marginalized), improvement between them; *_marginal are marginalized over the other shapes",
+            "survey covariance per survey in inputs.surveys[].covariance and rows[].covariance (realistic: Gaussian + theoretical error + leading P-B cross-covariance; gaussian: P and B independent Gaussian)",
+            "kmax_h_mpc: see inputs.surveys[].kmax_meaning (k_max(z = 0) for growth-rule surveys); each bin's k_max in per_bin[].kmax_used_h_mpc"
         ],
         "inputs": inputs_json(r),
         "rows": rows,
@@ -214,6 +220,7 @@ fn inputs_json(r: &RunResult) -> Value {
         "surveys": sc.surveys.iter().map(|s| json!({
             "name": s.name, "f_sky": s.f_sky, "redshift_error": s.redshift_error,
             "velocity_dispersion_km_s": s.velocity_dispersion_km_s, "kmax_rule": s.kmax_rule, "real_space": s.real_space,
+            "covariance": s.covariance.label(), "kmax_tree_h_mpc": s.kmax_tree_mpc / h, "kmax_meaning": crate::commands::survey::kmax_meaning(s),
             "bins": s.bins.iter().map(|b| json!({"z_min": b.z_min, "z_max": b.z_max, "z_eff": b.z_eff,
                 "volume_gpc3_h3": b.volume_mpc3 * h.powi(3) / 1e9})).collect::<Vec<_>>(),
             "tracers": s.tracers.iter().map(|t| json!({"name": t.name, "p": t.p,

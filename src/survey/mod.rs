@@ -1,7 +1,20 @@
-//! Survey physics: survey descriptions, tracers, bias and noise.
+//! Survey physics: survey descriptions, tracers, bias and its non-Gaussian response, the
+//! galaxy bispectrum kernels, covariance models, triangle quadrature and Fisher assembly.
+//!
+//! Dependencies run one way: `spec` (inputs) and `bias` (relations) -> `response` ->
+//! `kernels`, `covariance`, `triangles`, `linalg`, `layout` -> `power` -> `fisher`.
 
 pub mod bias;
+pub mod bispectrum;
+pub mod covariance;
 pub mod fisher;
+pub mod kernels;
+pub mod layout;
+pub mod linalg;
+pub mod power;
+pub mod response;
 pub mod spec;
+pub mod triangles;
 
+pub use covariance::CovarianceModel;
 pub use spec::{KmaxRule, RedshiftBin, Survey, SurveyFile, SurveyTable, Tracer, TracerBin};

@@ -21,6 +21,16 @@ use crate::cosmology::{Background, Growth, LinearPower};
 use crate::error::{Error, Location, Result};
 use crate::input::Source;
 use crate::survey::bias;
+use crate::survey::covariance::CovarianceModel;
+
+/// Default validity of the tree-level model, h/Mpc (common practice for tree-level
+/// bispectrum forecasts at z ~ 1, from memory).
+pub const DEFAULT_KMAX_TREE_H_MPC: f64 = 0.3;
+
+/// Largest sigma_z (1 + z_eff) / (bin width) for which bins are treated as independent
+/// volumes: a Gaussian redshift error of this size moves about 0.8 sigma_z / width = 16%
+/// of a bin's galaxies into its neighbours.
+pub const MAX_PHOTO_Z_OVER_WIDTH: f64 = 0.2;
 
 /// A number or one number per redshift bin.
 #[derive(Debug, Clone, Deserialize)]
@@ -143,8 +153,14 @@ pub struct SurveyTable {
     pub kmax_rule: Option<KmaxRule>,
     /// Default k_max in h/Mpc when no `--kmax` list is given.
     pub kmax_h_mpc: Option<Spanned<f64>>,
-    /// For the `sigma` rule: the rms of the linear field at which to stop.
+    /// For the `sigma` rule (and the nonlinear-scale warning): the rms of the linear
+    /// field at which to stop.
     pub sigma_nl: Option<Spanned<f64>>,
+    /// Validity of the tree-level model, h/Mpc: every bin's k_max is capped here
+    /// (default 0.3).
+    pub kmax_tree_h_mpc: Option<Spanned<f64>>,
+    /// Covariance model: "realistic" (default) or "gaussian".
+    pub covariance: Option<CovarianceModel>,
     /// Real space (no redshift-space distortions).
     #[serde(default)]
     pub real_space: bool,
@@ -228,8 +244,12 @@ pub struct Survey {
     pub kmax_rule: KmaxRule,
     /// Default k_max in 1/Mpc.
     pub kmax_default_mpc: f64,
-    /// sigma threshold for the `sigma` rule.
+    /// sigma threshold for the `sigma` rule and the nonlinear-scale warning.
     pub sigma_nl: f64,
+    /// Cap on every bin's k_max (validity of the tree-level model), 1/Mpc.
+    pub kmax_tree_mpc: f64,
+    /// Covariance model.
+    pub covariance: CovarianceModel,
     /// No redshift-space distortions.
     pub real_space: bool,
     /// Free nuisances.
@@ -306,19 +326,28 @@ impl Survey {
             kmax_rule: KmaxRule::Fixed,
             kmax_default_mpc: 0.2 * h,
             sigma_nl: 0.5,
+            kmax_tree_mpc: DEFAULT_KMAX_TREE_H_MPC * h,
+            covariance: CovarianceModel::default(),
             real_space,
             nuisance: NuisanceSwitches::default(),
             priors: NuisancePriors::default(),
         })
     }
 
-    /// k_max in 1/Mpc for a bin, given the requested k_max (1/Mpc) and the linear power.
+    /// k_max in 1/Mpc for a bin, given the requested k_max (1/Mpc) and the linear power:
+    /// the rule's value, capped at the validity of the tree-level model.
     pub fn kmax_for_bin(&self, requested_mpc: f64, bin: &RedshiftBin, power: &LinearPower) -> f64 {
-        match self.kmax_rule {
+        let k = match self.kmax_rule {
             KmaxRule::Fixed => requested_mpc,
             KmaxRule::Growth => requested_mpc / power.growth().d_norm0(bin.z_eff),
             KmaxRule::Sigma => requested_mpc.min(k_nonlinear(power, bin.z_eff, self.sigma_nl)),
-        }
+        };
+        k.min(self.kmax_tree_mpc)
+    }
+
+    /// True when the requested k_max is the value at z = 0 and bins scale it with z.
+    pub fn kmax_scales_with_z(&self) -> bool {
+        self.kmax_rule == KmaxRule::Growth
     }
 }
 
@@ -441,14 +470,14 @@ impl SurveyTable {
                 message: "add at least one [[survey.tracer]] table".into(),
             });
         }
-        if self.tracer.len() > crate::survey::fisher::MAX_TRACERS {
+        if self.tracer.len() > crate::survey::linalg::MAX_TRACERS {
             return Err(Error::BadField {
                 at: at_edges,
                 field: "tracer".into(),
                 message: format!(
                     "{} tracers given; at most {} share a volume",
                     self.tracer.len(),
-                    crate::survey::fisher::MAX_TRACERS
+                    crate::survey::linalg::MAX_TRACERS
                 ),
             });
         }
@@ -562,6 +591,33 @@ impl SurveyTable {
             2.0,
             "0.05 <= sigma_nl <= 2",
         )?;
+        let kmax_tree = opt(
+            &self.kmax_tree_h_mpc,
+            DEFAULT_KMAX_TREE_H_MPC,
+            "kmax_tree_h_mpc",
+            1e-3,
+            5.0,
+            "1e-3 <= kmax_tree_h_mpc <= 5",
+        )? * h;
+        // Overlapping photometric bins are not independent volumes: refuse them.
+        if let Some(re) = &self.redshift_error {
+            for b in &bins {
+                let ratio = redshift_error * (1.0 + b.z_eff) / (b.z_max - b.z_min);
+                if ratio > MAX_PHOTO_Z_OVER_WIDTH {
+                    return Err(Error::BadField {
+                        at: src.at(re),
+                        field: "redshift_error".into(),
+                        message: format!(
+                            "bin z = {}-{}: sigma_z (1 + z) = {:.3} is {:.2} of the bin width (more than {MAX_PHOTO_Z_OVER_WIDTH}); the bins would overlap and are not independent volumes. Use wider bins or a smaller redshift_error",
+                            b.z_min,
+                            b.z_max,
+                            redshift_error * (1.0 + b.z_eff),
+                            ratio
+                        ),
+                    });
+                }
+            }
+        }
         Ok(Survey {
             name: self
                 .name
@@ -576,6 +632,8 @@ impl SurveyTable {
             kmax_rule: self.kmax_rule.unwrap_or(KmaxRule::Fixed),
             kmax_default_mpc: kmax,
             sigma_nl,
+            kmax_tree_mpc: kmax_tree,
+            covariance: self.covariance.unwrap_or_default(),
             real_space: self.real_space,
             nuisance: self.nuisance,
             priors: self.priors,
