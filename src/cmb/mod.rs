@@ -17,6 +17,7 @@
 
 pub mod bispectrum;
 pub mod boltzmann;
+pub mod collapsed;
 pub mod experiment;
 pub mod shell;
 mod stiff;
