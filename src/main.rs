@@ -59,6 +59,7 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                 kmax_h_mpc: a.kmax,
                 probes: commands::survey::parse_probes(&a.probes)?,
                 shapes: commands::survey::parse_shapes(&a.shapes, "--shapes")?,
+                tau_nl: ngreach::shapes::lists_tau_nl(&a.shapes),
                 linear_power: a.linear_power,
                 settings: ngreach::survey::fisher::SurveySettings {
                     parallel: a.threads != Some(1),
@@ -130,6 +131,7 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                 lmax,
                 fields: commands::cmb::parse_fields(&a.fields)?,
                 shapes: commands::survey::parse_shapes(&a.shapes, "--shapes")?,
+                tau_nl: ngreach::shapes::lists_tau_nl(&a.shapes),
                 parallel: a.threads != Some(1),
                 cache: cache_options(&a.cache),
             };

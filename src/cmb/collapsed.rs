@@ -55,6 +55,9 @@
 //! l_max = max(l1, l2). The brute-force oracle [`brute_force_tau_fisher`] forms the full
 //! M_L from the explicit double sum with exact 3j symbols.
 
+// Index loops over (l, L, node) mirror the formulas above.
+#![allow(clippy::needless_range_loop)]
+
 use rayon::prelude::*;
 
 use crate::cmb::bispectrum::{BispectrumPlan, FieldSet};
