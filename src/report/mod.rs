@@ -8,6 +8,7 @@
 
 pub mod figures;
 pub mod outputs;
+pub mod tau_outputs;
 
 use serde_json::{Map, Value};
 

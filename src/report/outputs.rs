@@ -167,7 +167,7 @@ pub fn summary_json(r: &RunResult) -> Value {
             }
         }
     }
-    let cross: Vec<Value> = crossovers(r)
+    let mut cross: Vec<Value> = crossovers(r)
         .into_iter()
         .map(|c| {
             json!({"experiment": c.experiment, "survey": c.survey, "probe": c.probe, "shape": c.shape,
@@ -175,6 +175,14 @@ pub fn summary_json(r: &RunResult) -> Value {
                 "cmb_sigma": num(c.crossover.cmb_sigma), "note": c.crossover.note})
         })
         .collect();
+    crate::report::tau_outputs::extend_summary(
+        r,
+        &mut cmb_rows,
+        &mut survey_rows,
+        &mut joint_rows,
+        &mut rows,
+        &mut cross,
+    );
     json!({
         "version": crate::VERSION,
         "units": [
@@ -192,6 +200,7 @@ pub fn summary_json(r: &RunResult) -> Value {
         "joint": joint_rows,
         "crossover": cross,
         "fisher": {"cmb": cmb_fisher, "survey": survey_fisher},
+        "tau_nl": crate::report::tau_outputs::summary_block(r),
     })
 }
 
@@ -221,6 +230,16 @@ fn inputs_json(r: &RunResult) -> Value {
         })).collect::<Vec<_>>(),
         "output": sc.output,
     })
+}
+
+/// A CSV text with `#` comment lines (the version, then `notes`) above the header.
+pub(crate) fn csv_text(header: &[&str], notes: &[&str], rows: &[Vec<String>]) -> String {
+    csv(header, notes, rows)
+}
+
+/// A number for a CSV cell (`inf` when not finite).
+pub(crate) fn fmt_value(x: f64) -> String {
+    f(x)
 }
 
 fn csv(header: &[&str], notes: &[&str], rows: &[Vec<String>]) -> String {
@@ -598,6 +617,7 @@ pub fn write_outputs(r: &RunResult, dir: &Path) -> Result<Vec<String>> {
             written.push(format!("{stem}.svg"));
         }
     }
+    crate::report::tau_outputs::write_outputs(r, dir, &mut written)?;
     if sc.output.latex {
         put("table.tex", latex_table(r).as_bytes(), &mut written)?;
     }
@@ -794,6 +814,7 @@ pub fn terminal_summary(r: &RunResult) -> String {
             out.push('\n');
         }
     }
+    out.push_str(&crate::report::tau_outputs::terminal_lines(r));
     out
 }
 
