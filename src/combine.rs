@@ -14,6 +14,12 @@
 //! the survey is below the CMB already at the first grid point the crossover is reported
 //! at that point with `below_grid = true`; when it never gets below, `kmax_h_mpc` is
 //! `None` ("not reached below k = the largest grid value").
+//!
+//! tau_NL ([`tau_joint`]): the CMB's collapsed-trispectrum information has no cross term
+//! with f_NL at a Gaussian fiducial, the survey's power-spectrum information does; the
+//! joint (tau_NL, f_NL local) matrix is the sum (the CMB's f_NL local information from
+//! its bispectrum), and sigma(tau_NL) is reported with f_NL local marginalized. Its
+//! crossover uses the same [`crossover`] on the survey's marginalized sigma(tau_NL).
 
 use serde::Serialize;
 

@@ -115,3 +115,60 @@ fn planck_like_tau_nl_against_published_bounds() {
         Some(0.0)
     );
 }
+
+/// Convergence study of the long-mode basis on the full transfer (Planck-like noise,
+/// l_max 2000, T and T+E): sigma(tau_NL), rank and time for basis tolerances 0 (exact:
+/// every radial node), 1e-7, 1e-5 (default), 1e-4, 1e-3. Slow; run with
+/// `cargo test --release --test cmb_tau_nl -- --ignored --nocapture basis`.
+#[test]
+#[ignore]
+fn basis_tolerance_study() {
+    use ngreach::cmb::bispectrum::{BispectrumPlan, CmbFisherInput, FieldSet};
+    use ngreach::cmb::boltzmann::CacheOptions;
+    use ngreach::cmb::collapsed::{CollapsedSettings, tau_nl_fisher};
+    use ngreach::cmb::thermal::ThermalHistory;
+    use ngreach::cosmology::{Background, Cosmology, Primordial};
+    let lmax = 2000;
+    let c = Cosmology::planck2018();
+    let bg = Background::new(&c);
+    let th = ThermalHistory::new(&c, &bg).unwrap();
+    let (table, radial, _) =
+        ngreach::cmb::full_transfer_for(&c, &th, &bg, lmax, &CacheOptions::default()).unwrap();
+    let exp = ngreach::cmb::experiment::load_experiment(std::path::Path::new(
+        "tests/data/cmb_planck2018_like.toml",
+    ))
+    .unwrap();
+    let p = Primordial::new(&c);
+    let plan = BispectrumPlan::new(&CmbFisherInput {
+        transfer: &table,
+        primordial: p,
+        shapes: &[ngreach::shapes::Shape::Local],
+        experiment: &exp,
+        t_cmb_k: c.params().t_cmb_k,
+        lmax_grid: &[lmax],
+        field_sets: &[FieldSet::T, FieldSet::TE],
+        radial: &radial,
+        parallel: true,
+    });
+    let mut exact = None;
+    for tol in [0.0, 1e-7, 1e-5, 1e-4, 1e-3] {
+        let t0 = std::time::Instant::now();
+        let st = CollapsedSettings {
+            basis_tol: tol,
+            ..CollapsedSettings::default()
+        };
+        let fc = tau_nl_fisher(&plan, &radial, &p, &[lmax], &st).unwrap();
+        let s: Vec<f64> = fc.fisher.iter().map(|f| 1.0 / f[0].sqrt()).collect();
+        let e = exact.get_or_insert(s.clone()).clone();
+        println!(
+            "tol {tol:e}: rank {} of {} nodes, sigma T {:.4} T+E {:.4} (rel. to exact {:+.1e}, {:+.1e}), {:.1} s",
+            fc.basis_rank,
+            fc.active_nodes,
+            s[0],
+            s[1],
+            s[0] / e[0] - 1.0,
+            s[1] / e[1] - 1.0,
+            t0.elapsed().as_secs_f64()
+        );
+    }
+}

@@ -100,6 +100,7 @@ pub fn check_file(path: &Path) -> Result<String> {
                 s.shapes
                     .iter()
                     .map(|x| x.name())
+                    .chain(s.tau_nl.then(|| crate::shapes::TAU_NL.to_string()))
                     .collect::<Vec<_>>()
                     .join(","),
                 s.lmax,
