@@ -37,8 +37,10 @@ fn get(v: &[(u64, String, String, f64, f64)], l: u64, f: &str, s: &str) -> (f64,
 /// l_max 600 / 1000 / 1400), because with a noise-free experiment the damping cancels
 /// between the modulation response and the covariance, and the shell's width (~16 Mpc) is
 /// far below the long mode's scale chi_* / L. The slope falls with noise instead (the
-/// Planck-like test below: T+E 3.65 at l_max 500, 0.23 at 2500). So the check asserts
-/// that damping and thickness do not raise it.
+/// Planck-like test below: T+E 3.65 at l_max 500, 0.23 at 2500). The full Boltzmann
+/// transfer with a noise-free experiment behaves the same way (measured with `ngreach
+/// cmb --ideal --transfer full`: tau_NL T 4.003 / 4.006 / 4.011 at l_max 1000 / 2000 /
+/// 3000, local 2.03). So the check asserts that damping and thickness do not raise it.
 #[test]
 fn shell_tau_nl_slope_near_four_local_near_two() {
     let run = |thin: bool| {

@@ -153,7 +153,7 @@ pub fn cmb_report(
         "transfer": meta,
         "lmax": lmax,
         "fields": opts.fields.iter().map(|f| f.label()).collect::<Vec<_>>(),
-        "shapes": opts.shapes.iter().map(|s| s.name()).collect::<Vec<_>>(),
+        "shapes": opts.shapes.iter().map(|s| s.name()).chain(opts.tau_nl.then(|| crate::shapes::TAU_NL.to_string())).collect::<Vec<_>>(),
         "radial_nodes": radial.len(),
         "k_nodes": table.k().len(),
     });

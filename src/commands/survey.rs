@@ -168,7 +168,7 @@ pub fn survey_report(
         "survey": survey_json(survey, h),
         "kmax_h_mpc": sorted,
         "probes": opts.probes.iter().map(|p| p.label()).collect::<Vec<_>>(),
-        "shapes": opts.shapes.iter().map(|s| s.name()).collect::<Vec<_>>(),
+        "shapes": opts.shapes.iter().map(|s| s.name()).chain(opts.tau_nl.then(|| crate::shapes::TAU_NL.to_string())).collect::<Vec<_>>(),
         "settings": opts.settings,
         "linear_power": power_meta,
     });

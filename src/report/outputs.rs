@@ -211,7 +211,7 @@ fn inputs_json(r: &RunResult) -> Value {
         "scenario": sc.name,
         "source": sc.source,
         "cosmology": crate::commands::cosmology_json(&sc.cosmology, &sc.source),
-        "shapes": sc.shapes.iter().map(|s| s.name()).collect::<Vec<_>>(),
+        "shapes": sc.shapes.iter().map(|s| s.name()).chain(sc.tau_nl.then(|| crate::shapes::TAU_NL.to_string())).collect::<Vec<_>>(),
         "lmax": sc.lmax,
         "kmax_h_mpc": sc.kmax_h_mpc,
         "fields": sc.fields.iter().map(|f| f.label()).collect::<Vec<_>>(),
