@@ -121,9 +121,9 @@ pub struct CollapsedForecast {
     pub field_sets: Vec<FieldSet>,
     /// Highest multipole of the long mode.
     pub long_lmax: usize,
-    /// fisher[field set][l_max index] = F(tau_NL, tau_NL) (f_sky included).
+    /// `fisher[field set][l_max index]`: F(tau_NL, tau_NL) (f_sky included).
     pub fisher: Vec<Vec<f64>>,
-    /// per_long_l[field set][L] = the contribution of long mode L at the top l_max
+    /// `per_long_l[field set][L]`: the contribution of long mode L at the top l_max
     /// (f_sky included; zero for L < 2).
     pub per_long_l: Vec<Vec<f64>>,
     /// Effective thin-shell reconstruction noise at the top l_max, per field set and L:
