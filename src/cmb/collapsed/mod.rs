@@ -67,8 +67,14 @@ use crate::cmb::bispectrum::{BispectrumPlan, FieldSet};
 use crate::cmb::transfer::{Field, RadialGrid};
 use crate::cosmology::Primordial;
 use crate::error::{Error, Result};
-use crate::numerics::GaussLegendre;
 use crate::special::wigner::Wigner000;
+
+mod long_mode;
+mod oracle;
+
+pub use long_mode::long_mode_covariance;
+use long_mode::{node_range, orthonormal_basis, pivoted_cholesky};
+pub use oracle::{brute_force_tau_fisher, quadrilateral_tau_fisher};
 
 /// The name of the parameter in outputs (rows use `shape = "tau_nl"`).
 pub const PARAMETER_NAME: &str = "tau_nl";
@@ -88,7 +94,7 @@ pub const DEFAULT_BASIS_TOL: f64 = 1e-5;
 const NODE_TOL: f64 = 1e-10;
 
 /// P_a = (25/9) tau_NL P_Phi: the modulation field's power per unit tau_NL.
-const MODULATION_POWER: f64 = 25.0 / 9.0;
+pub(crate) const MODULATION_POWER: f64 = 25.0 / 9.0;
 
 /// Settings of the collapsed-limit engine.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -153,7 +159,7 @@ pub fn exponent_indices(plan: &BispectrumPlan) -> Result<(usize, usize)> {
     }
 }
 
-fn cinv_entry(c: &[f64; 3], a: Field, b: Field) -> f64 {
+pub(crate) fn cinv_entry(c: &[f64; 3], a: Field, b: Field) -> f64 {
     match (a, b) {
         (Field::T, Field::T) => c[0],
         (Field::E, Field::E) => c[2],
@@ -267,177 +273,6 @@ impl Kernels {
             cinv,
         })
     }
-}
-
-/// S'_L(r_i, r_j) = (25/9) (2/pi) Integral k^2 dk P_Phi(k) j_L(k r_i) j_L(k r_j) for
-/// L = 0..=long_lmax on the nodes `r` (n x n, row-major; entries for L < 2 are zero).
-/// Gauss-Legendre panels (8 nodes) in ln k from 0.01 / r_max to 30 (L_long + 2) / r_min,
-/// of width at most 0.05 in ln k and at most 2.5 radians of the phase k (r_max + r_min)
-/// (the fastest oscillation of j_L(k r_i) j_L(k r_j)). Above the top the integrand falls
-/// as cos / k^3: the diagonal misses 1 / (4 x^2) of 1 / (2 L (L+1)) (x = k_top r >= 30
-/// (L_long + 2)), i.e. 5e-4 at L = L_long and 2e-5 at L <= 6, where the information
-/// sits (measured against the closed form in the tests).
-/// `r_range` sets the k grid (default: the range of `r`).
-pub fn long_mode_covariance(
-    prim: &Primordial,
-    r: &[f64],
-    r_range: Option<(f64, f64)>,
-    long_lmax: usize,
-    parallel: bool,
-) -> Vec<Vec<f64>> {
-    let n = r.len();
-    let nl = long_lmax + 1;
-    if n == 0 {
-        return vec![Vec::new(); nl];
-    }
-    let (r_lo, r_hi) = r_range.unwrap_or_else(|| node_range(r));
-    let spread = r_hi + r_lo;
-    let (k_lo, k_hi) = (0.01 / r_hi, 30.0 * (long_lmax + 2) as f64 / r_lo);
-    let mut edges = vec![k_lo.ln()];
-    while *edges.last().unwrap_or(&0.0) < k_hi.ln() {
-        let x = *edges.last().unwrap_or(&0.0);
-        let h = 0.05_f64.min(2.5 / (x.exp() * spread));
-        edges.push((x + h).min(k_hi.ln()));
-        if x + h >= k_hi.ln() {
-            break;
-        }
-    }
-    let gl = GaussLegendre::new(8);
-    let mut kw: Vec<(f64, f64)> = Vec::new();
-    for p in 0..edges.len() - 1 {
-        let (xs, ws) = gl.mapped(edges[p], edges[p + 1]);
-        for (x, w) in xs.into_iter().zip(ws) {
-            let k = x.exp();
-            // Integral dk k^2 P (...) = Integral d ln k k^3 P (...).
-            kw.push((
-                k,
-                MODULATION_POWER * 2.0 / std::f64::consts::PI * w * k.powi(3) * prim.p_phi(k),
-            ));
-        }
-    }
-    const CHUNK: usize = 256;
-    let chunk = |c: &[(f64, f64)]| -> Vec<Vec<f64>> {
-        let m = c.len();
-        let mut j = vec![0.0; nl];
-        // jt[L][q * n + i] = sqrt(weight_q) j_L(k_q r_i)
-        let mut jt = vec![vec![0.0; m * n]; nl];
-        for (q, &(k, w)) in c.iter().enumerate() {
-            let s = w.sqrt();
-            for (i, &ri) in r.iter().enumerate() {
-                crate::special::sph_bessel_all_l(long_lmax as u32, k * ri, &mut j);
-                for ll in 2..nl {
-                    jt[ll][q * n + i] = s * j[ll];
-                }
-            }
-        }
-        let mut out = vec![vec![0.0; n * n]; nl];
-        for ll in 2..nl {
-            crate::numerics::gemm::gemm(
-                n,
-                m,
-                n,
-                &jt[ll],
-                (1, n),
-                &jt[ll],
-                (n, 1),
-                0.0,
-                &mut out[ll],
-                (n, 1),
-            );
-        }
-        out
-    };
-    let parts: Vec<Vec<Vec<f64>>> = if parallel {
-        kw.par_chunks(CHUNK).map(chunk).collect()
-    } else {
-        kw.chunks(CHUNK).map(chunk).collect()
-    };
-    let mut s = vec![vec![0.0; n * n]; nl];
-    for p in parts {
-        for (a, b) in s.iter_mut().zip(p) {
-            for (x, y) in a.iter_mut().zip(b) {
-                *x += y;
-            }
-        }
-    }
-    s
-}
-
-/// (min, max) of radial nodes, the minimum at least 1 Mpc.
-fn node_range(r: &[f64]) -> (f64, f64) {
-    let lo = r.iter().copied().fold(f64::INFINITY, f64::min).max(1.0);
-    (lo, r.iter().copied().fold(0.0, f64::max).max(lo))
-}
-
-/// Pivoted Cholesky of the symmetric positive semi-definite n x n matrix `k` to the
-/// relative tolerance `tol` (of its largest diagonal): columns l_a with k ~ Sum l_a l_a^T.
-fn pivoted_cholesky(k: &[f64], n: usize, tol: f64) -> Vec<Vec<f64>> {
-    let mut diag: Vec<f64> = (0..n).map(|i| k[i * n + i]).collect();
-    let top = diag.iter().copied().fold(0.0, f64::max);
-    let mut cols: Vec<Vec<f64>> = Vec::new();
-    if top <= 0.0 {
-        return cols;
-    }
-    while cols.len() < n {
-        let (p, &dp) = diag
-            .iter()
-            .enumerate()
-            .max_by(|a, b| a.1.total_cmp(b.1))
-            .unwrap_or((0, &0.0));
-        if dp <= tol * top {
-            break;
-        }
-        let s = dp.sqrt();
-        let col: Vec<f64> = (0..n)
-            .map(|i| {
-                let mut v = k[i * n + p];
-                for c in &cols {
-                    v -= c[i] * c[p];
-                }
-                v / s
-            })
-            .collect();
-        for (d, &c) in diag.iter_mut().zip(&col) {
-            *d -= c * c;
-        }
-        diag[p] = 0.0;
-        cols.push(col);
-    }
-    cols
-}
-
-/// An orthonormal basis of the span of `vs` (modified Gram-Schmidt, largest residual
-/// first), dropping directions whose residual falls below `tol` of the vector's norm.
-fn orthonormal_basis(vs: &[Vec<f64>], tol: f64) -> Vec<Vec<f64>> {
-    let mut work: Vec<(Vec<f64>, f64)> = vs
-        .iter()
-        .map(|v| (v.clone(), v.iter().map(|x| x * x).sum::<f64>().sqrt()))
-        .filter(|(_, nrm)| *nrm > 0.0)
-        .collect();
-    let mut q: Vec<Vec<f64>> = Vec::new();
-    while !work.is_empty() {
-        // Pick the vector with the largest relative residual.
-        let (ip, rel) = work
-            .iter()
-            .enumerate()
-            .map(|(i, (v, n0))| (i, v.iter().map(|x| x * x).sum::<f64>().sqrt() / n0))
-            .max_by(|a, b| a.1.total_cmp(&b.1))
-            .unwrap_or((0, 0.0));
-        if rel <= tol {
-            break;
-        }
-        let (v, _) = work.swap_remove(ip);
-        let nrm = v.iter().map(|x| x * x).sum::<f64>().sqrt();
-        let u: Vec<f64> = v.iter().map(|x| x / nrm).collect();
-        for (w, _) in work.iter_mut() {
-            let dot: f64 = w.iter().zip(&u).map(|(a, b)| a * b).sum();
-            for (a, b) in w.iter_mut().zip(&u) {
-                *a -= dot * b;
-            }
-        }
-        q.push(u);
-    }
-    q
 }
 
 /// Tr[(A B)^2] for symmetric R x R matrices.
@@ -716,141 +551,6 @@ pub fn tau_nl_fisher(
         active_nodes: kern.nodes.len(),
         r_range_mpc: r_range,
     })
-}
-
-/// Brute-force oracle: F_L for L = 0..=long_lmax (f_sky included) at l_max = `lmax`
-/// and field set index `fs`, from the full M_L (every radial node, the explicit double
-/// sum over l1, l2 <= lmax with exact 3j symbols) and the full S'_L:
-/// F_L = f_sky (2L+1)/2 Tr[(M_L S'_L)^2] (`r_range` as in [`long_mode_covariance`]). Cost ~ lmax^2 n_r^2 per L: small l_max only.
-pub fn brute_force_tau_fisher(
-    plan: &BispectrumPlan,
-    radial: &RadialGrid,
-    prim: &Primordial,
-    lmax: usize,
-    fs: usize,
-    long_lmax: usize,
-    r_range: Option<(f64, f64)>,
-) -> Result<Vec<f64>> {
-    let (e0, e1) = exponent_indices(plan)?;
-    let n = plan.n_radial();
-    let nf = plan.n_fields();
-    let fields = plan.fields().to_vec();
-    let s = long_mode_covariance(prim, &radial.r, r_range, long_lmax, true);
-    let mut out = vec![0.0; long_lmax + 1];
-    for (big_l, o) in out.iter_mut().enumerate().skip(2) {
-        let mut m = vec![0.0; n * n];
-        for l1 in 2..=lmax {
-            for l2 in 2..=lmax {
-                let w3 = crate::special::wigner3j_000_squared(l1 as u32, l2 as u32, big_l as u32);
-                if w3 == 0.0 {
-                    continue;
-                }
-                let geo =
-                    0.5 * ((2 * l1 + 1) * (2 * l2 + 1)) as f64 / (4.0 * std::f64::consts::PI) * w3;
-                let (c1, c2) = (
-                    plan.inverse_covariance(fs, l1),
-                    plan.inverse_covariance(fs, l2),
-                );
-                // f[XY][i]
-                let f: Vec<Vec<f64>> = (0..nf * nf)
-                    .map(|xy| {
-                        let (x, y) = (xy / nf, xy % nf);
-                        (0..n)
-                            .map(|i| {
-                                radial.w[i]
-                                    * (plan.radial_function(e0, x, l1, i)
-                                        * plan.radial_function(e1, y, l2, i)
-                                        + plan.radial_function(e1, x, l1, i)
-                                            * plan.radial_function(e0, y, l2, i))
-                            })
-                            .collect()
-                    })
-                    .collect();
-                for xy in 0..nf * nf {
-                    for xpyp in 0..nf * nf {
-                        let c = cinv_entry(&c1, fields[xy / nf], fields[xpyp / nf])
-                            * cinv_entry(&c2, fields[xy % nf], fields[xpyp % nf]);
-                        if c == 0.0 {
-                            continue;
-                        }
-                        for i in 0..n {
-                            let a = geo * c * f[xy][i];
-                            for j in 0..n {
-                                m[i * n + j] += a * f[xpyp][j];
-                            }
-                        }
-                    }
-                }
-            }
-        }
-        // Tr[(M S)^2]
-        let mut ms = vec![0.0; n * n];
-        crate::numerics::gemm::gemm(n, n, n, &m, (n, 1), &s[big_l], (n, 1), 0.0, &mut ms, (n, 1));
-        let mut t = 0.0;
-        for i in 0..n {
-            for j in 0..n {
-                t += ms[i * n + j] * ms[j * n + i];
-            }
-        }
-        *o = plan.f_sky() * (2 * big_l + 1) as f64 / 2.0 * t;
-    }
-    Ok(out)
-}
-
-/// Second oracle: the trispectrum Fisher written as a direct sum over quadrilaterals in
-/// the collapsed pairing, T only (field set index `fs` of a T-only plan):
-/// F = f_sky Sum_L (2L+1)/2 (1/4) Sum_{l1 l2 l3 l4} G^2_{l1l2L} G^2_{l3l4L}
-/// t^{l1l2}_{l3l4}(L)^2 / (C_l1 C_l2 C_l3 C_l4), t = Sum_ij w_i f_{l1l2}(r_i) S'_L(i,j)
-/// w_j f_{l3l4}(r_j). Returns F per L for L = 0..=long_lmax.
-pub fn quadrilateral_tau_fisher(
-    plan: &BispectrumPlan,
-    radial: &RadialGrid,
-    prim: &Primordial,
-    lmax: usize,
-    fs: usize,
-    long_lmax: usize,
-    r_range: Option<(f64, f64)>,
-) -> Result<Vec<f64>> {
-    let (e0, e1) = exponent_indices(plan)?;
-    let n = plan.n_radial();
-    let s = long_mode_covariance(prim, &radial.r, r_range, long_lmax, true);
-    let mut out = vec![0.0; long_lmax + 1];
-    for (big_l, o) in out.iter_mut().enumerate().skip(2) {
-        // Pairs with their weight G^2 / C C and vectors S' (w f).
-        let mut pairs: Vec<(f64, Vec<f64>, Vec<f64>)> = Vec::new();
-        for l1 in 2..=lmax {
-            for l2 in 2..=lmax {
-                let w3 = crate::special::wigner3j_000_squared(l1 as u32, l2 as u32, big_l as u32);
-                let c = plan.inverse_covariance(fs, l1)[0] * plan.inverse_covariance(fs, l2)[0];
-                if w3 == 0.0 || c == 0.0 {
-                    continue;
-                }
-                let g2 = ((2 * l1 + 1) * (2 * l2 + 1)) as f64 / (4.0 * std::f64::consts::PI) * w3;
-                let wf: Vec<f64> = (0..n)
-                    .map(|i| {
-                        radial.w[i]
-                            * (plan.radial_function(e0, 0, l1, i)
-                                * plan.radial_function(e1, 0, l2, i)
-                                + plan.radial_function(e1, 0, l1, i)
-                                    * plan.radial_function(e0, 0, l2, i))
-                    })
-                    .collect();
-                let sv: Vec<f64> = (0..n)
-                    .map(|i| (0..n).map(|j| s[big_l][i * n + j] * wf[j]).sum())
-                    .collect();
-                pairs.push((g2 * c, wf, sv));
-            }
-        }
-        let mut acc = 0.0;
-        for (g12, _, sv) in &pairs {
-            for (g34, wf, _) in &pairs {
-                let t: f64 = sv.iter().zip(wf).map(|(a, b)| a * b).sum();
-                acc += 0.25 * g12 * g34 * t * t;
-            }
-        }
-        *o = plan.f_sky() * (2 * big_l + 1) as f64 / 2.0 * acc;
-    }
-    Ok(out)
 }
 
 #[cfg(test)]
