@@ -220,7 +220,8 @@ pub struct SurveyArgs {
         default_value = "P,B,P+B"
     )]
     pub probes: Vec<String>,
-    /// Shapes: local, equilateral, orthogonal, delta=D, mass=M (m/H).
+    /// Shapes: local, equilateral, orthogonal, delta=D, mass=M (m/H); tau_nl adds the
+    /// collapsed-trispectrum amplitude from the tracers' power spectra.
     #[arg(
         long,
         value_name = "LIST",
@@ -274,7 +275,8 @@ pub struct CmbArgs {
         default_value = "T,E,T+E"
     )]
     pub fields: Vec<String>,
-    /// Shapes: local, equilateral, orthogonal, delta=D, mass=M (m/H).
+    /// Shapes: local, equilateral, orthogonal, delta=D, mass=M (m/H); tau_nl adds the
+    /// collapsed-trispectrum amplitude (tau_nl alone skips the bispectrum).
     #[arg(
         long,
         value_name = "LIST",

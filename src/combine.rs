@@ -14,6 +14,12 @@
 //! the survey is below the CMB already at the first grid point the crossover is reported
 //! at that point with `below_grid = true`; when it never gets below, `kmax_h_mpc` is
 //! `None` ("not reached below k = the largest grid value").
+//!
+//! tau_NL ([`tau_joint`]): the CMB's collapsed-trispectrum information has no cross term
+//! with f_NL at a Gaussian fiducial, the survey's power-spectrum information does; the
+//! joint (tau_NL, f_NL local) matrix is the sum (the CMB's f_NL local information from
+//! its bispectrum), and sigma(tau_NL) is reported with f_NL local marginalized. Its
+//! crossover uses the same [`crossover`] on the survey's marginalized sigma(tau_NL).
 
 use serde::Serialize;
 
@@ -121,9 +127,48 @@ pub fn improvement(single: &[f64], joint: f64) -> f64 {
     }
 }
 
+/// Joint sigma(tau_NL), (f_NL fixed, marginalized over f_NL local), of a CMB
+/// experiment and a survey. The CMB contributes F(tau, tau) = `cmb_tau` from the
+/// collapsed trispectrum and F(f, f) = `cmb_fnl_local` from the bispectrum (local f_NL
+/// after marginalizing the other shapes; 0 when local is not among them), with no cross
+/// term at a Gaussian fiducial; the survey contributes its (tau_nl, fnl_local) power-
+/// spectrum matrix `survey`, whose cross term is not zero. The matrices add (different
+/// modes), then f_NL local is marginalized.
+pub fn tau_joint(cmb_tau: f64, cmb_fnl_local: f64, survey: &FisherMatrix) -> (f64, f64) {
+    let (tt, tf, ff) = (
+        cmb_tau + survey.get(0, 0),
+        survey.get(0, 1),
+        cmb_fnl_local + survey.get(1, 1),
+    );
+    let inv = |x: f64| {
+        if x > 0.0 {
+            1.0 / x.sqrt()
+        } else {
+            f64::INFINITY
+        }
+    };
+    let schur = if ff > 0.0 { tt - tf * tf / ff } else { tt };
+    (inv(tt), inv(schur))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn tau_joint_adds_and_marginalizes() {
+        let s = FisherMatrix::from_rows(
+            vec!["tau_nl".into(), "fnl_local".into()],
+            vec![4.0, 1.0, 1.0, 1.0],
+        );
+        let (c, m) = tau_joint(5.0, 0.0, &s);
+        assert!((c - 1.0 / 3.0).abs() < 1e-12);
+        // Schur: 9 - 1/1 = 8.
+        assert!((m - 1.0 / 8f64.sqrt()).abs() < 1e-12);
+        // CMB information on f_NL shrinks the marginalization penalty: 9 - 1/4.
+        let (_, m2) = tau_joint(5.0, 3.0, &s);
+        assert!((m2 - 1.0 / 8.75f64.sqrt()).abs() < 1e-12 && m2 < m);
+    }
 
     #[test]
     fn crossover_interpolates_in_log() {

@@ -1,8 +1,8 @@
 //! # ngreach
 //!
 //! Forecasts of how tightly a CMB experiment and a 3D galaxy survey constrain primordial
-//! non-Gaussianity (f_NL of the local, equilateral, orthogonal and intermediate shapes),
-//! on one footing.
+//! non-Gaussianity (f_NL of the local, equilateral, orthogonal and intermediate shapes,
+//! and the collapsed-trispectrum amplitude tau_NL), on one footing.
 //!
 //! ## Pipeline
 //! [`cosmology`] (background, growth, linear power) -> CMB physics and survey physics ->
@@ -15,6 +15,8 @@
 //! - Primordial potential Phi = (3/5) zeta (matter domination); P_Phi = (9/25) P_zeta.
 //! - f_NL is in the CMB convention: the growth factor that links Phi to the density is
 //!   normalized to a in matter domination ([`cosmology::Growth::d_md`]).
+//! - tau_NL as in Suyama & Yamaguchi 2008: a single local source gives
+//!   tau_NL = (6 f_NL / 5)^2 ([`cmb::collapsed`], [`survey::tau_nl`]).
 
 #![deny(unsafe_code)] // one audited exception: the dgemm call in numerics::gemm
 #![warn(missing_docs)]

@@ -189,6 +189,7 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                 kmax_h_mpc: a.kmax,
                 probes,
                 shapes,
+                tau_nl: ngreach::shapes::lists_tau_nl(&a.shapes),
                 linear_power: a.linear_power,
                 covariance: a.covariance,
                 settings,
@@ -277,6 +278,7 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                 lmax,
                 fields,
                 shapes,
+                tau_nl: ngreach::shapes::lists_tau_nl(&a.shapes),
                 parallel: a.threads != Some(1),
                 cache: cache_options(&a.cache),
             };

@@ -13,6 +13,7 @@ use serde_json::{Value, json};
 
 use crate::cmb::bispectrum::{BispectrumPlan, CmbFisherInput, CmbForecast, cmb_fisher_with_plan};
 use crate::cmb::boltzmann::CacheOptions;
+use crate::cmb::collapsed::{CollapsedForecast, CollapsedSettings, tau_nl_fisher};
 use crate::cmb::experiment::Experiment;
 use crate::cmb::thermal::ThermalHistory;
 use crate::cmb::transfer::{RadialGrid, TransferTable};
@@ -21,6 +22,7 @@ use crate::error::{Location, Result};
 use crate::scenario::{LinearPowerChoice, Scenario, TransferChoice};
 use crate::survey::Survey;
 use crate::survey::fisher::{ShapeInput, SurveyForecast, SurveySettings, survey_fisher};
+use crate::survey::tau_nl::{TauCovariance, TauSurveyForecast, survey_tau_fisher};
 
 /// The CMB forecast of one experiment.
 #[derive(Debug, Clone)]
@@ -29,6 +31,8 @@ pub struct CmbResult {
     pub experiment: Experiment,
     /// Fisher matrices per field set and l_max.
     pub forecast: CmbForecast,
+    /// tau_NL from the collapsed trispectrum (when the scenario lists `tau_nl`).
+    pub tau: Option<CollapsedForecast>,
 }
 
 /// The forecast of one survey.
@@ -38,6 +42,8 @@ pub struct SurveyResult {
     pub survey: Survey,
     /// Fisher matrices per k_max and probe, per bin and summed.
     pub forecast: SurveyForecast,
+    /// tau_NL from the tracers' power spectra (when the scenario lists `tau_nl`).
+    pub tau: Option<TauSurveyForecast>,
 }
 
 /// Everything a run computed.
@@ -325,9 +331,20 @@ pub fn run_scenario_cached(
                 .plan
                 .with_experiment(&pieces.table, &prim, e, c.params().t_cmb_k);
             let forecast = cmb_fisher_with_plan(&p, &sc.lmax, settings.parallel);
+            let tau = if sc.tau_nl {
+                progress(&format!("CMB collapsed trispectrum (tau_NL): {}", e.name));
+                let st = CollapsedSettings {
+                    parallel: settings.parallel,
+                    ..CollapsedSettings::default()
+                };
+                Some(tau_nl_fisher(&p, &pieces.radial, &prim, &sc.lmax, &st)?)
+            } else {
+                None
+            };
             cmb.push(CmbResult {
                 experiment: e.clone(),
                 forecast,
+                tau,
             });
         }
     }
@@ -357,9 +374,13 @@ pub fn run_scenario_cached(
                 Some(s.bins.len() as u64),
             );
             let forecast = survey_fisher(s, power, &bg, &shapes, &kmax_mpc, &st);
+            let tau = sc
+                .tau_nl
+                .then(|| survey_tau_fisher(s, power, &bg, &kmax_mpc, &st, TauCovariance::Gaussian));
             surveys.push(SurveyResult {
                 survey: s.clone(),
                 forecast,
+                tau,
             });
         }
     }

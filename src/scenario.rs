@@ -4,7 +4,7 @@
 //! ```toml
 //! [scenario]
 //! name = "..."
-//! shapes = ["local", "equilateral", "orthogonal"]
+//! shapes = ["local", "equilateral", "orthogonal", "tau_nl"]   # tau_nl optional
 //! lmax = [500, 1000, 2000, 3000]
 //! kmax_h_mpc = [0.05, 0.1, 0.2]
 //! fields = ["T", "E", "T+E"]         # optional
@@ -211,6 +211,8 @@ pub struct Scenario {
     pub surveys: Vec<Survey>,
     /// Shapes.
     pub shapes: Vec<Shape>,
+    /// Also tau_NL (collapsed trispectrum; `tau_nl` in `shapes`).
+    pub tau_nl: bool,
     /// l_max grid (increasing).
     pub lmax: Vec<usize>,
     /// k_max grid in h/Mpc (increasing).
@@ -329,10 +331,22 @@ pub fn resolve_scenario(src: &Source, files: &dyn FileResolver) -> Result<Scenar
         Some(v) => v
             .get_ref()
             .iter()
+            .filter(|s| !crate::shapes::is_tau_nl(s))
             .map(|s| Shape::parse(s, src.at(v)))
             .collect::<Result<_>>()?,
         None => vec![Shape::Local, Shape::Equilateral, Shape::Orthogonal],
     };
+    let tau_nl = t
+        .shapes
+        .as_ref()
+        .is_some_and(|v| crate::shapes::lists_tau_nl(v.get_ref()));
+    if shapes.is_empty() {
+        return Err(Error::BadField {
+            at: flag_at(&t.shapes),
+            field: "shapes".into(),
+            message: "list at least one f_NL shape (tau_nl may be listed in addition)".into(),
+        });
+    }
     let names: Vec<String> = shapes.iter().map(|s| s.name()).collect();
     distinct(&names, &flag_at(&t.shapes), "shapes")?;
     let mut lmax: Vec<usize> = match &t.lmax {
@@ -529,6 +543,7 @@ pub fn resolve_scenario(src: &Source, files: &dyn FileResolver) -> Result<Scenar
         experiments,
         surveys,
         shapes,
+        tau_nl,
         lmax,
         kmax_h_mpc: kmax,
         fields,

@@ -322,6 +322,32 @@ impl BispectrumPlan {
     pub fn terms(&self) -> &[Vec<(f64, [usize; 3])>] {
         &self.terms
     }
+
+    /// The sky fraction of the experiment the plan carries.
+    pub fn f_sky(&self) -> f64 {
+        self.f_sky
+    }
+
+    /// The field sets the plan's inverse covariances are for (in `inverse_covariance`'s
+    /// index order).
+    pub fn field_sets(&self) -> &[FieldSet] {
+        &self.field_sets
+    }
+
+    /// The highest multipole of the radial functions.
+    pub fn lmax(&self) -> usize {
+        self.lmax
+    }
+
+    /// Number of radial nodes.
+    pub fn n_radial(&self) -> usize {
+        self.n_r
+    }
+
+    /// The transfer table's fields, in the order of the radial functions' field index.
+    pub fn fields(&self) -> &[Field] {
+        &self.fields
+    }
 }
 
 /// Fraction of the transfer table's k range over which the radial functions' k

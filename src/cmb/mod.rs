@@ -14,9 +14,11 @@
 //! - [`transfer`]: transfer-function tables Delta^X_l(k), the input of the engine.
 //! - [`experiment`]: noise, beams, sky fraction.
 //! - [`bispectrum`]: the Fisher engine (T, E, T+E; cumulative in l_max).
+//! - [`collapsed`]: tau_NL from the collapsed trispectrum on the same radial functions.
 
 pub mod bispectrum;
 pub mod boltzmann;
+pub mod collapsed;
 pub mod experiment;
 pub mod shell;
 mod stiff;

@@ -130,6 +130,7 @@ pub fn check_file_with(path: &Path, limits: &Limits) -> Result<(String, Vec<Stri
                 s.shapes
                     .iter()
                     .map(|x| x.name())
+                    .chain(s.tau_nl.then(|| crate::shapes::TAU_NL.to_string()))
                     .collect::<Vec<_>>()
                     .join(","),
                 s.lmax,

@@ -2,8 +2,11 @@
 
 use serde_json::{Value, json};
 
-use crate::cmb::bispectrum::{CmbFisherInput, CmbForecast, FieldSet, cmb_fisher};
+use crate::cmb::bispectrum::{
+    BispectrumPlan, CmbFisherInput, CmbForecast, FieldSet, cmb_fisher_with_plan,
+};
 use crate::cmb::boltzmann::CacheOptions;
+use crate::cmb::collapsed::{CollapsedForecast, CollapsedSettings, tau_nl_fisher};
 use crate::cmb::experiment::{Experiment, validate_lmax};
 use crate::cmb::thermal::ThermalHistory;
 use crate::combine::{log_slopes, sigmas};
@@ -30,6 +33,8 @@ pub struct CmbOptions {
     pub fields: Vec<FieldSet>,
     /// Shapes.
     pub shapes: Vec<Shape>,
+    /// Also the collapsed-trispectrum amplitude tau_NL (`tau_nl` in `--shapes`).
+    pub tau_nl: bool,
     /// Parallel loops.
     pub parallel: bool,
     /// Transfer-table cache of the Boltzmann solver (`--cache-dir`, `--no-cache`).
@@ -87,10 +92,23 @@ pub fn cmb_report(
         }
         TransferChoice::Full => crate::cmb::full_transfer_for(c, &th, &bg, top, &opts.cache)?,
     };
+    if opts.shapes.is_empty() && !opts.tau_nl {
+        return Err(Error::BadField {
+            at: Location::Flag("--shapes".into()),
+            field: "shapes".into(),
+            message: "list at least one shape or tau_nl".into(),
+        });
+    }
+    // The radial functions of the local shape serve tau_NL when no shape is listed.
+    let plan_shapes = if opts.shapes.is_empty() {
+        vec![Shape::Local]
+    } else {
+        opts.shapes.clone()
+    };
     let inp = CmbFisherInput {
         transfer: &table,
         primordial: Primordial::new(c),
-        shapes: &opts.shapes,
+        shapes: &plan_shapes,
         experiment: exp,
         t_cmb_k: c.params().t_cmb_k,
         lmax_grid: &lmax,
@@ -98,7 +116,30 @@ pub fn cmb_report(
         radial: &radial,
         parallel: opts.parallel,
     };
-    let fc = cmb_fisher(&inp);
+    let plan = BispectrumPlan::new(&inp);
+    let mut fc = cmb_fisher_with_plan(&plan, &lmax, opts.parallel);
+    if opts.shapes.is_empty() {
+        fc.shapes.clear();
+        for v in &mut fc.fisher {
+            for f in v.iter_mut() {
+                *f = crate::fisher::FisherMatrix::zeros(&[]);
+            }
+        }
+    }
+    let tau = if opts.tau_nl {
+        Some(tau_nl_fisher(
+            &plan,
+            &radial,
+            &Primordial::new(c),
+            &lmax,
+            &CollapsedSettings {
+                parallel: opts.parallel,
+                ..CollapsedSettings::default()
+            },
+        )?)
+    } else {
+        None
+    };
     let mut r = Report::new("cmb");
     r.notes = vec![
         "sigma(f_NL) in the CMB convention; lmax dimensionless".into(),
@@ -112,7 +153,7 @@ pub fn cmb_report(
         "transfer": meta,
         "lmax": lmax,
         "fields": opts.fields.iter().map(|f| f.label()).collect::<Vec<_>>(),
-        "shapes": opts.shapes.iter().map(|s| s.name()).collect::<Vec<_>>(),
+        "shapes": opts.shapes.iter().map(|s| s.name()).chain(opts.tau_nl.then(|| crate::shapes::TAU_NL.to_string())).collect::<Vec<_>>(),
         "radial_nodes": radial.len(),
         "k_nodes": table.k().len(),
     });
@@ -149,5 +190,61 @@ pub fn cmb_report(
         }
     }
     r.json_extra.push(("fisher".into(), Value::Array(mats)));
+    if let Some(t) = &tau {
+        add_tau_rows(&mut r, t);
+    }
     Ok((r, fc))
+}
+
+/// The notes that state the tau_NL convention (shared by the commands).
+pub const TAU_NL_NOTES: [&str; 2] = [
+    "tau_nl: collapsed-trispectrum amplitude, T_zeta = tau_NL [P_zeta(k1) P_zeta(k3) P_zeta(|k1+k2|) + 11 perms]; a single local source gives tau_NL = (6 f_NL / 5)^2 (Suyama & Yamaguchi 2008)",
+    "CMB tau_nl rows: collapsed limit (modulation reconstruction, long modes 2 <= L <= long_lmax); no Fisher cross term with f_NL at a Gaussian fiducial, so sigma_conditional = sigma_marginal",
+];
+
+/// Adds the tau_NL rows (shape `tau_nl`) and the `tau_nl` JSON block to a `cmb` report.
+fn add_tau_rows(r: &mut Report, t: &CollapsedForecast) {
+    for n in TAU_NL_NOTES {
+        r.notes.push(n.into());
+    }
+    let lm: Vec<f64> = t.lmax.iter().map(|&l| l as f64).collect();
+    for (ifs, fs) in t.field_sets.iter().enumerate() {
+        let slopes = log_slopes(&lm, &t.fisher[ifs]);
+        for (m, &l) in t.lmax.iter().enumerate() {
+            let f = t.fisher[ifs][m];
+            let sigma = if f > 0.0 {
+                1.0 / f.sqrt()
+            } else {
+                f64::INFINITY
+            };
+            r.rows.push(vec![
+                json!(l),
+                Value::String(fs.label().into()),
+                Value::String(crate::shapes::TAU_NL.into()),
+                num(sigma),
+                num(sigma),
+                num(slopes[m]),
+            ]);
+        }
+    }
+    r.json_extra.push((
+        "tau_nl".into(),
+        json!({
+            "convention": TAU_NL_NOTES[0],
+            "fisher_cross_term_with_fnl": 0.0,
+            "cross_term_note": "bispectrum (cubic) and collapsed trispectrum (quartic) statistics are uncorrelated at a Gaussian fiducial",
+            "long_lmax": t.long_lmax,
+            "long_l_min": 2,
+            "basis_rank": t.basis_rank,
+            "radial_nodes": t.active_nodes,
+            "per_field_set": t.field_sets.iter().enumerate().map(|(i, fs)| json!({
+                "fields": fs.label(),
+                "lmax": t.lmax,
+                "fisher": t.fisher[i].iter().map(|&x| num(x)).collect::<Vec<_>>(),
+                "fisher_per_long_l_at_top_lmax": t.per_long_l[i].iter().map(|&x| num(x)).collect::<Vec<_>>(),
+                "reconstruction_noise_eff_per_long_l": t.noise_eff[i].iter().map(|&x| num(x)).collect::<Vec<_>>(),
+            })).collect::<Vec<_>>(),
+            "reconstruction_noise_definition": "N_L with F_L = f_sky (2L+1)/2 (C^a_L / N_L)^2, C^a_L the modulation power per unit tau_NL at the shell's peak node (dimensionless)",
+        }),
+    ));
 }

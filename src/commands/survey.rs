@@ -23,6 +23,8 @@ pub struct SurveyOptions {
     pub probes: Vec<Probe>,
     /// Shapes (f_NL parameters).
     pub shapes: Vec<Shape>,
+    /// Also tau_NL from the power spectra (`tau_nl` in `--shapes`).
+    pub tau_nl: bool,
     /// Linear matter power (`--linear-power`).
     pub linear_power: LinearPowerChoice,
     /// Covariance model (`--covariance`; None: the survey's own).
@@ -69,6 +71,10 @@ pub fn parse_probes(list: &[String]) -> Result<Vec<Probe>> {
 pub fn parse_shapes(list: &[String], flag: &str) -> Result<Vec<Shape>> {
     let mut out: Vec<Shape> = Vec::new();
     for s in list {
+        // tau_NL is read by `lists_tau_nl`, not as a bispectrum shape.
+        if crate::shapes::is_tau_nl(s) {
+            continue;
+        }
         let sh = Shape::parse(s, Location::Flag(flag.into()))?;
         if out.iter().any(|o| o.name() == sh.name()) {
             return Err(Error::BadField {
@@ -185,7 +191,7 @@ pub fn survey_report(
         "survey": survey_json(survey, h),
         "kmax_h_mpc": sorted,
         "probes": opts.probes.iter().map(|p| p.label()).collect::<Vec<_>>(),
-        "shapes": opts.shapes.iter().map(|s| s.name()).collect::<Vec<_>>(),
+        "shapes": opts.shapes.iter().map(|s| s.name()).chain(opts.tau_nl.then(|| crate::shapes::TAU_NL.to_string())).collect::<Vec<_>>(),
         "settings": opts.settings,
         "covariance": cov.label(),
         "kmax_meaning": kmax_meaning(survey),
@@ -234,6 +240,17 @@ pub fn survey_report(
         }
         .into(),
     ));
+    if opts.tau_nl {
+        let tau = crate::survey::tau_nl::survey_tau_fisher(
+            survey,
+            &power,
+            &bg,
+            &kmax_mpc,
+            &opts.settings,
+            crate::survey::tau_nl::TauCovariance::Gaussian,
+        );
+        add_tau_rows(&mut r, &tau, &sorted);
+    }
     Ok((r, fc))
 }
 
@@ -258,6 +275,40 @@ fn kmax_note(s: &Survey, h: f64) -> String {
         kmax_meaning(s),
         crate::report::format_sig(s.kmax_tree_mpc / h, 3)
     )
+}
+
+/// Adds the tau_NL rows (probe P, shape `tau_nl`) and the `tau_nl` JSON block.
+pub fn add_tau_rows(
+    r: &mut Report,
+    tau: &crate::survey::tau_nl::TauSurveyForecast,
+    kmax_h: &[f64],
+) {
+    r.notes.push(super::cmb::TAU_NL_NOTES[0].into());
+    r.notes.push(format!(
+        "survey tau_nl rows: power spectra only (stochastic scale-dependent bias, {} covariance); sigma_conditional with f_NL fixed, sigma_marginal marginalized over f_NL local (the power spectrum couples them)",
+        tau.covariance.label()
+    ));
+    for (ik, &k) in kmax_h.iter().enumerate() {
+        let (c, m) = tau.sigmas(ik);
+        r.rows.push(vec![
+            num(k),
+            Value::String("P".into()),
+            Value::String(crate::shapes::TAU_NL.into()),
+            num(c),
+            num(m),
+        ]);
+    }
+    r.json_extra.push((
+        "tau_nl".into(),
+        json!({
+            "covariance": tau.covariance.label(),
+            "parameters": crate::survey::tau_nl::PARAMETERS,
+            "fisher_cross_term_note": "the power spectrum carries both f_NL and tau_NL: F(tau_nl, fnl_local) is not zero; sigma_marginal marginalizes over fnl_local",
+            "fisher": kmax_h.iter().enumerate().map(|(ik, &k)| json!({
+                "kmax_h_mpc": k, "matrix": tau.total[ik].rows(),
+            })).collect::<Vec<_>>(),
+        }),
+    ));
 }
 
 /// Index of a probe in the engine's [P, B, P+B] arrays.

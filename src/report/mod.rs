@@ -22,6 +22,7 @@ pub mod latex;
 pub mod matrices;
 pub mod outputs;
 pub mod table;
+pub mod tau_outputs;
 
 use serde_json::{Map, Value};
 

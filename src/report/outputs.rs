@@ -157,7 +157,7 @@ pub fn summary_json(r: &RunResult) -> Value {
             }
         }
     }
-    let cross: Vec<Value> = crossovers(r)
+    let mut cross: Vec<Value> = crossovers(r)
         .into_iter()
         .map(|c| {
             json!({"experiment": c.experiment, "survey": c.survey, "probe": c.probe, "shape": c.shape,
@@ -165,6 +165,14 @@ pub fn summary_json(r: &RunResult) -> Value {
                 "cmb_sigma": num(c.crossover.cmb_sigma), "note": c.crossover.note})
         })
         .collect();
+    crate::report::tau_outputs::extend_summary(
+        r,
+        &mut cmb_rows,
+        &mut survey_rows,
+        &mut joint_rows,
+        &mut rows,
+        &mut cross,
+    );
     json!({
         "version": crate::VERSION,
         "units": [
@@ -185,6 +193,7 @@ pub fn summary_json(r: &RunResult) -> Value {
         "crossover": cross,
         "fisher": {"cmb": cmb_fisher, "survey": survey_fisher},
         "information": information_json(r),
+        "tau_nl": crate::report::tau_outputs::summary_block(r),
     })
 }
 
@@ -209,7 +218,7 @@ fn inputs_json(r: &RunResult) -> Value {
         "scenario": sc.name,
         "source": sc.source,
         "cosmology": crate::commands::cosmology_json(&sc.cosmology, &sc.source),
-        "shapes": sc.shapes.iter().map(|s| s.name()).collect::<Vec<_>>(),
+        "shapes": sc.shapes.iter().map(|s| s.name()).chain(sc.tau_nl.then(|| crate::shapes::TAU_NL.to_string())).collect::<Vec<_>>(),
         "lmax": sc.lmax,
         "kmax_h_mpc": sc.kmax_h_mpc,
         "fields": sc.fields.iter().map(|f| f.label()).collect::<Vec<_>>(),
@@ -229,6 +238,26 @@ fn inputs_json(r: &RunResult) -> Value {
         })).collect::<Vec<_>>(),
         "output": sc.output,
     })
+}
+
+/// A CSV text with exactly one header row (no comment lines; notes go to tables.json).
+pub(crate) fn csv_text(header: &[&str], _notes: &[&str], rows: &[Vec<String>]) -> String {
+    let mut s = header.join(",");
+    s.push('\n');
+    for r in rows {
+        s.push_str(&r.join(","));
+        s.push('\n');
+    }
+    s
+}
+
+/// A number for a CSV cell (an empty cell when not finite).
+pub(crate) fn fmt_value(x: f64) -> String {
+    if x.is_finite() {
+        format!("{x}")
+    } else {
+        String::new()
+    }
 }
 
 /// A file-name-safe version of a label.
@@ -320,6 +349,7 @@ pub fn write_outputs_with(r: &RunResult, dir: &Path, opts: &OutputOptions) -> Re
         dir,
         opts.tables,
     )?);
+    crate::report::tau_outputs::write_outputs(r, dir, &mut written)?;
     if sc.output.latex {
         put("table.tex", latex_table(r).as_bytes(), &mut written)?;
     }

@@ -110,8 +110,11 @@
 //! B > 0 for f_NL > 0 in the local shape, with Phi the Bardeen potential of
 //! [`crate::cosmology::Primordial`] (Delta T / T = -Phi/3 on large scales).
 
+mod parameter;
 mod separable;
 mod shape;
+
+pub use parameter::{TAU_NL, is_tau_nl, lists_tau_nl};
 
 pub use separable::{Separable, SeparableTerm, SqueezedTerm};
 pub use shape::{Shape, SqueezedIndex};

@@ -87,7 +87,7 @@ pub enum Shape {
 }
 
 /// The accepted spellings, for error messages.
-const ACCEPTED: &str = "local, equilateral, orthogonal, delta=<0..1.5>, mass=<m/H in 0..1.5>";
+const ACCEPTED: &str = "local, equilateral, orthogonal, delta=<0..1.5>, mass=<m/H in 0..1.5> (and tau_nl in shape lists)";
 
 /// A number with two decimals when that is exact, else the shortest exact form.
 fn canonical_number(v: f64) -> String {

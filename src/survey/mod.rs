@@ -14,6 +14,7 @@ pub mod linalg;
 pub mod power;
 pub mod response;
 pub mod spec;
+pub mod tau_nl;
 pub mod triangles;
 
 pub use covariance::CovarianceModel;
