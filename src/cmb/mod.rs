@@ -18,6 +18,7 @@
 pub mod bispectrum;
 pub mod boltzmann;
 pub mod experiment;
+pub mod lensing;
 pub mod shell;
 mod stiff;
 pub mod thermal;
