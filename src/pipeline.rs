@@ -271,6 +271,7 @@ fn build_cmb_pieces(
         field_sets: &sc.fields,
         radial: &radial,
         parallel,
+        signal_cl: None,
     };
     let plan = BispectrumPlan::new(&inp);
     Ok(CmbPieces {
@@ -315,7 +316,7 @@ pub fn run_scenario_cached(
             progress(&format!("CMB bispectrum Fisher: {}", e.name));
             let p = pieces
                 .plan
-                .with_experiment(&pieces.table, &prim, e, c.params().t_cmb_k);
+                .with_experiment(&pieces.table, &prim, e, c.params().t_cmb_k, None);
             let forecast = cmb_fisher_with_plan(&p, &sc.lmax, settings.parallel);
             cmb.push(CmbResult {
                 experiment: e.clone(),

@@ -191,6 +191,7 @@ fn split_is_exact_and_compression_is_within_tolerance() {
         field_sets: &fsets,
         radial: &radial,
         parallel: true,
+        signal_cl: None,
     });
     let run = |tol: f64, split: bool| {
         cmb_fisher_with_options(&plan, &grid, true, &EngineOptions { tol, split })

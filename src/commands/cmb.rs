@@ -97,6 +97,7 @@ pub fn cmb_report(
         field_sets: &opts.fields,
         radial: &radial,
         parallel: opts.parallel,
+        signal_cl: None,
     };
     let fc = cmb_fisher(&inp);
     let mut r = Report::new("cmb");

@@ -36,7 +36,7 @@ use crate::numerics::{CubicSpline, GaussLegendre};
 use crate::special::sph_bessel_all_l;
 
 /// Highest L of the full line-of-sight integral; Limber above.
-pub const L_LOS: usize = 250;
+pub const L_LOS: usize = 100;
 /// Wavenumber range of the Weyl-potential modes, 1/Mpc.
 const K_MIN: f64 = 1.0e-5;
 const K_MAX: f64 = 5.0;
@@ -222,14 +222,15 @@ impl WeylSource {
     }
 
     /// C_L^{T phi} by the full line of sight for L = 0..=lmax (lmax <= the table's), with
-    /// the temperature transfer functions of `table` on its own k grid.
+    /// the temperature transfer functions of `table` on its own k grid (k <= 0.3 /Mpc).
     pub fn tp_los(&self, table: &TransferTable, lmax: usize) -> Vec<f64> {
         let lmax = lmax.min(table.lmax());
         let n = lmax + 1;
         let ft = table.field_index(Field::T).expect("table holds T");
-        let d = self.phi_transfer(table.k(), lmax);
+        let nk = table.k().partition_point(|&k| k <= LOS_K_MAX);
+        let d = self.phi_transfer(&table.k()[..nk], lmax);
         let mut c = vec![0.0; n];
-        for (ik, (&k, &w)) in table.k().iter().zip(table.weights()).enumerate() {
+        for (ik, (&k, &w)) in table.k()[..nk].iter().zip(table.weights()).enumerate() {
             let a = 2.0 / std::f64::consts::PI * w * k * k * self.prim.p_phi(k);
             let t = table.row(ft, ik);
             for (l, cl) in c.iter_mut().enumerate() {
@@ -259,9 +260,12 @@ impl WeylSource {
     }
 }
 
+/// Largest k of the line-of-sight integrals, 1/Mpc: for L <= L_LOS beyond it only
+/// chi < L_LOS / k = 330 Mpc contributes, where the lensing kernel is negligible.
+const LOS_K_MAX: f64 = 0.3;
+
 /// The k grid of the line-of-sight phi phi integral and its trapezoid weights: log-spaced
-/// from 1e-5 to 1e-3 /Mpc, then 1e-4 apart to 0.1 /Mpc and 5e-4 apart to 1 /Mpc (beyond,
-/// L <= L_LOS draws only on chi < 250 Mpc, where the kernel is negligible).
+/// from 1e-5 to 1e-3 /Mpc, then 1e-4 apart to 0.1 /Mpc and 5e-4 apart to LOS_K_MAX.
 fn los_k_grid() -> (Vec<f64>, Vec<f64>) {
     let mut k: Vec<f64> = (0..40)
         .map(|i| 1e-5 * 100f64.powf(i as f64 / 40.0))
@@ -271,7 +275,7 @@ fn los_k_grid() -> (Vec<f64>, Vec<f64>) {
         k.push(x);
         x += 1e-4;
     }
-    while x <= 1.0 {
+    while x <= LOS_K_MAX {
         k.push(x);
         x += 5e-4;
     }
