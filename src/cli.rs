@@ -263,6 +263,19 @@ pub struct CmbArgs {
     /// Worker threads (1 runs the serial path).
     #[arg(long, value_name = "N")]
     pub threads: Option<usize>,
+    /// Spectra in the covariance of the Fisher sum: lensed (the default; needs the full
+    /// transfer) or unlensed.
+    #[arg(long, value_enum, value_name = "KIND")]
+    pub spectra: Option<crate::cmb::lensing::CovarianceSpectra>,
+    /// Fraction F of the lensing-potential power removed before lensing the covariance
+    /// spectra, 0 <= F <= 1 (default 0).
+    #[arg(
+        long,
+        value_name = "F",
+        default_value_t = 0.0,
+        allow_hyphen_values = true
+    )]
+    pub delensing: f64,
     /// Transfer-table cache.
     #[command(flatten)]
     pub cache: CacheArgs,

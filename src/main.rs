@@ -132,6 +132,14 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                 shapes: commands::survey::parse_shapes(&a.shapes, "--shapes")?,
                 parallel: a.threads != Some(1),
                 cache: cache_options(&a.cache),
+                spectra: a.spectra.unwrap_or(
+                    if transfer == ngreach::scenario::TransferChoice::Shell {
+                        ngreach::cmb::lensing::CovarianceSpectra::Unlensed
+                    } else {
+                        ngreach::cmb::lensing::CovarianceSpectra::Lensed
+                    },
+                ),
+                delensing: a.delensing,
             };
             let (r, _) = commands::cmb::cmb_report(&c, &src, &opts)?;
             Ok(r.render(a.common.format))

@@ -5,6 +5,7 @@ use serde_json::{Value, json};
 use crate::cmb::bispectrum::{CmbFisherInput, CmbForecast, FieldSet, cmb_fisher};
 use crate::cmb::boltzmann::CacheOptions;
 use crate::cmb::experiment::{Experiment, validate_lmax};
+use crate::cmb::lensing::{CovarianceSpectra, lensing_of};
 use crate::cmb::thermal::ThermalHistory;
 use crate::combine::{log_slopes, sigmas};
 use crate::cosmology::{Background, Cosmology, Primordial};
@@ -34,6 +35,10 @@ pub struct CmbOptions {
     pub parallel: bool,
     /// Transfer-table cache of the Boltzmann solver (`--cache-dir`, `--no-cache`).
     pub cache: CacheOptions,
+    /// Spectra of the covariance (`--spectra`).
+    pub spectra: CovarianceSpectra,
+    /// Fraction of the lensing-potential power removed (`--delensing`).
+    pub delensing: f64,
 }
 
 /// Parses `--fields`.
@@ -78,6 +83,28 @@ pub fn cmb_report(
             message: "--no-damping applies to --transfer shell only".into(),
         });
     }
+    if !(0.0..=1.0).contains(&opts.delensing) || !opts.delensing.is_finite() {
+        return Err(Error::out_of_range(
+            Location::Flag("--delensing".into()),
+            "delensing",
+            opts.delensing,
+            "0 <= F <= 1 (fraction of the lensing-potential power removed)",
+        ));
+    }
+    if opts.spectra == CovarianceSpectra::Lensed && opts.transfer == TransferChoice::Shell {
+        return Err(Error::Conflict {
+            at: Location::Flag("--spectra".into()),
+            message: "lensed spectra need the Boltzmann transfer (--transfer full); use \
+                      --spectra unlensed with the shell model"
+                .into(),
+        });
+    }
+    if opts.spectra == CovarianceSpectra::Unlensed && opts.delensing != 0.0 {
+        return Err(Error::Conflict {
+            at: Location::Flag("--delensing".into()),
+            message: "--delensing applies to --spectra lensed only".into(),
+        });
+    }
     let bg = Background::new(c);
     let top = *lmax.last().unwrap_or(&2000);
     let th = ThermalHistory::new(c, &bg)?;
@@ -86,6 +113,19 @@ pub fn cmb_report(
             crate::cmb::shell_transfer_for(&th, opts.shell_width_mpc, opts.damping, top)?
         }
         TransferChoice::Full => crate::cmb::full_transfer_for(c, &th, &bg, top, &opts.cache)?,
+    };
+    let lensing = match opts.spectra {
+        CovarianceSpectra::Lensed => Some(lensing_of(
+            c,
+            &th,
+            &bg,
+            &table,
+            top,
+            opts.delensing,
+            1,
+            opts.parallel,
+        )?),
+        CovarianceSpectra::Unlensed => None,
     };
     let inp = CmbFisherInput {
         transfer: &table,
@@ -97,7 +137,7 @@ pub fn cmb_report(
         field_sets: &opts.fields,
         radial: &radial,
         parallel: opts.parallel,
-        signal_cl: None,
+        signal_cl: lensing.as_ref().map(|l| &l.lensed),
     };
     let fc = cmb_fisher(&inp);
     let mut r = Report::new("cmb");
@@ -106,6 +146,17 @@ pub fn cmb_report(
         "sigma_conditional: other shapes fixed; sigma_marginal: marginalized over the other shapes listed".into(),
         "log_slope = d ln F_ii / d ln l_max of the conditional Fisher information (the S/N^2 scaling with resolution)".into(),
         format!("transfer: {}", table.label()),
+        format!(
+            "rows of a field set stop at its l_max (T {}, E {}, T+E the larger)",
+            exp.lmax_t, exp.lmax_e
+        ),
+        match opts.spectra {
+            CovarianceSpectra::Lensed => format!(
+                "covariance: lensed C_l (our lensing potential, curved-sky correlation functions), delensing {} of C^phiphi removed",
+                opts.delensing
+            ),
+            CovarianceSpectra::Unlensed => "covariance: unlensed C_l".into(),
+        },
     ];
     r.inputs = json!({
         "cosmology": super::cosmology_json(c, cosmo_source),
@@ -114,6 +165,8 @@ pub fn cmb_report(
         "lmax": lmax,
         "fields": opts.fields.iter().map(|f| f.label()).collect::<Vec<_>>(),
         "shapes": opts.shapes.iter().map(|s| s.name()).collect::<Vec<_>>(),
+        "cmb_spectra": opts.spectra.label(),
+        "delensing": opts.delensing,
         "radial_nodes": radial.len(),
         "k_nodes": table.k().len(),
     });
@@ -132,6 +185,17 @@ pub fn cmb_report(
     let mut mats = Vec::new();
     for (m, &l) in fc.lmax.iter().enumerate() {
         for (ifs, fs) in fc.field_sets.iter().enumerate() {
+            // A field set's rows stop at its own l_max: beyond it the Fisher sum does
+            // not grow, and a row labelled with a larger l_max would misstate what was
+            // used.
+            let field_top = match fs {
+                FieldSet::T => exp.lmax_t,
+                FieldSet::E => exp.lmax_e,
+                FieldSet::TE => exp.lmax_t.max(exp.lmax_e),
+            };
+            if l > field_top {
+                continue;
+            }
             let f = &fc.fisher[ifs][m];
             let (cond, marg) = sigmas(f);
             for (is, s) in opts.shapes.iter().enumerate() {

@@ -14,6 +14,37 @@ use crate::cmb::transfer::TransferTable;
 use crate::cosmology::{Background, Cosmology, Primordial};
 use crate::error::{Error, Location, Result};
 
+/// Which CMB spectra enter the covariance of the bispectrum Fisher sum.
+#[derive(
+    Debug,
+    Clone,
+    Copy,
+    Default,
+    PartialEq,
+    Eq,
+    serde::Deserialize,
+    serde::Serialize,
+    clap::ValueEnum,
+)]
+#[serde(rename_all = "lowercase")]
+pub enum CovarianceSpectra {
+    /// The lensed spectra (with the chosen delensing), as a real analysis sees them.
+    #[default]
+    Lensed,
+    /// The unlensed spectra of the transfer table.
+    Unlensed,
+}
+
+impl CovarianceSpectra {
+    /// `lensed` or `unlensed`.
+    pub fn label(self) -> &'static str {
+        match self {
+            Self::Lensed => "lensed",
+            Self::Unlensed => "unlensed",
+        }
+    }
+}
+
 /// Everything lensing gives for one cosmology and output range.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Lensing {
