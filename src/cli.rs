@@ -61,7 +61,8 @@ pub enum Command {
     Merge(MergeArgs),
     /// Validate input files (scenario, survey, experiment, cosmology, plan).
     Check(CheckArgs),
-    /// Unlensed CMB spectra D_l^TT, D_l^EE, D_l^TE (microkelvin^2) from a transfer model.
+    /// CMB spectra D_l^TT, D_l^EE, D_l^TE (microkelvin^2) from a transfer model; lensed
+    /// (with BB and the lensing potential) with --lensed.
     Spectra(SpectraArgs),
 }
 
@@ -301,6 +302,9 @@ pub struct SpectraArgs {
     /// Switch diffusion damping off.
     #[arg(long)]
     pub no_damping: bool,
+    /// Lensed spectra (full transfer only): adds D_l^BB and the lensing potential.
+    #[arg(long)]
+    pub lensed: bool,
     /// Transfer-table cache.
     #[command(flatten)]
     pub cache: CacheArgs,

@@ -76,6 +76,7 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                 shell_sigma_mpc: a.shell_width,
                 damping: !a.no_damping,
                 cache: cache_options(&a.cache),
+                lensed: a.lensed,
             };
             Ok(commands::spectra::spectra_report(&c, &src, &opts)?.render(a.common.format))
         }
