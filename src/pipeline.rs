@@ -152,6 +152,8 @@ pub struct CmbPieces {
     pub meta: Value,
     /// Radial functions (noise of the first experiment; others via `with_experiment`).
     pub plan: BispectrumPlan,
+    /// The lensed spectra of the covariance (`cmb_spectra = "lensed"`), else `None`.
+    pub lensed: Option<crate::cmb::lensing::LensedSpectra>,
 }
 
 /// One cache slot: computed once, success or the error message.
@@ -202,9 +204,11 @@ impl CmbCache {
     /// The key of a scenario's CMB pieces.
     pub fn key(sc: &Scenario) -> String {
         format!(
-            "{:?}|{:?}|{:?}|{}|{:?}|{:?}|{:?}",
+            "{:?}|{:?}|{:?}|{:?}|{:?}|{}|{:?}|{:?}|{:?}",
             sc.cosmology.params(),
             sc.transfer,
+            sc.cmb_spectra,
+            sc.delensing,
             sc.shell_width_mpc,
             sc.damping,
             sc.lmax.last(),
@@ -259,7 +263,29 @@ fn build_cmb_pieces(
     let parallel = settings.parallel;
     let lmax = *sc.lmax.last().unwrap_or(&2000);
     progress("CMB transfer functions");
-    let (table, radial, meta) = cmb_transfer(sc, bg, lmax, &settings.cache)?;
+    let (table, radial, mut meta) = cmb_transfer(sc, bg, lmax, &settings.cache)?;
+    let lensed = match sc.cmb_spectra {
+        crate::cmb::lensing::CovarianceSpectra::Lensed => {
+            progress("CMB lensing");
+            let th = ThermalHistory::new(c, bg)?;
+            let l = crate::cmb::lensing::lensing_of(
+                c,
+                &th,
+                bg,
+                &table,
+                lmax,
+                sc.delensing,
+                1,
+                parallel,
+            )?;
+            Some(l.lensed)
+        }
+        crate::cmb::lensing::CovarianceSpectra::Unlensed => None,
+    };
+    if let Value::Object(m) = &mut meta {
+        m.insert("cmb_spectra".into(), Value::from(sc.cmb_spectra.label()));
+        m.insert("delensing".into(), Value::from(sc.delensing));
+    }
     progress("CMB radial functions");
     let inp = CmbFisherInput {
         transfer: &table,
@@ -271,7 +297,7 @@ fn build_cmb_pieces(
         field_sets: &sc.fields,
         radial: &radial,
         parallel,
-        signal_cl: None,
+        signal_cl: lensed.as_ref(),
     };
     let plan = BispectrumPlan::new(&inp);
     Ok(CmbPieces {
@@ -279,6 +305,7 @@ fn build_cmb_pieces(
         radial,
         meta,
         plan,
+        lensed,
     })
 }
 
@@ -314,9 +341,13 @@ pub fn run_scenario_cached(
         transfer_meta = pieces.meta.clone();
         for e in &sc.experiments {
             progress(&format!("CMB bispectrum Fisher: {}", e.name));
-            let p = pieces
-                .plan
-                .with_experiment(&pieces.table, &prim, e, c.params().t_cmb_k, None);
+            let p = pieces.plan.with_experiment(
+                &pieces.table,
+                &prim,
+                e,
+                c.params().t_cmb_k,
+                pieces.lensed.as_ref(),
+            );
             let forecast = cmb_fisher_with_plan(&p, &sc.lmax, settings.parallel);
             cmb.push(CmbResult {
                 experiment: e.clone(),

@@ -199,7 +199,10 @@ fn full_report(
     let mut r = Report::new("spectra");
     let kind = if o.lensed { "lensed" } else { "unlensed" };
     r.notes = vec![
-        format!("dl_*_uk2: D_l = l(l+1) C_l / 2pi in microkelvin^2 (uK^2), {kind}, T_CMB = {} K; ell is the multipole", c.params().t_cmb_k),
+        format!(
+            "dl_*_uk2: D_l = l(l+1) C_l / 2pi in microkelvin^2 (uK^2), {kind}, T_CMB = {} K; ell is the multipole",
+            c.params().t_cmb_k
+        ),
         "transfer: line-of-sight Boltzmann solution (synchronous gauge, massless neutrinos)".into(),
     ];
     r.inputs = json!({"cosmology": super::cosmology_json(c, source), "transfer": o.transfer, "spectra": kind, "lmax": o.lmax, "solver": meta});
@@ -216,7 +219,11 @@ fn full_report(
     for (row, ell) in r.rows.iter_mut().zip(2..) {
         let f = (ell * (ell + 1)) as f64 / (2.0 * std::f64::consts::PI);
         row.push(num(f * t_uk * t_uk * l.bb[ell]));
-        row.push(num(f * f * 2.0 * std::f64::consts::PI * lens.potential.pp[ell]));
+        row.push(num(f
+            * f
+            * 2.0
+            * std::f64::consts::PI
+            * lens.potential.pp[ell]));
     }
     Ok(r)
 }
