@@ -109,6 +109,7 @@ fn main() {
         field_sets: &[FieldSet::TE],
         radial: &radial,
         parallel: true,
+        signal_cl: None,
     };
     let t1 = Instant::now();
     let plan = BispectrumPlan::new(&inp);

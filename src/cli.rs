@@ -70,7 +70,8 @@ pub enum Command {
     Merge(MergeArgs),
     /// Validate input files (scenario, survey, experiment, cosmology, plan).
     Check(CheckArgs),
-    /// Unlensed CMB spectra D_l^TT, D_l^EE, D_l^TE (microkelvin^2) from a transfer model.
+    /// CMB spectra D_l^TT, D_l^EE, D_l^TE (microkelvin^2) from a transfer model; lensed
+    /// (with BB and the lensing potential) with --lensed.
     Spectra(SpectraArgs),
 }
 
@@ -290,6 +291,19 @@ pub struct CmbArgs {
     /// Worker threads (1 runs the serial path; at most 4 per core).
     #[arg(long, value_name = "N")]
     pub threads: Option<usize>,
+    /// Spectra in the covariance of the Fisher sum: lensed (the default; needs the full
+    /// transfer) or unlensed.
+    #[arg(long, value_enum, value_name = "KIND")]
+    pub spectra: Option<crate::cmb::lensing::CovarianceSpectra>,
+    /// Fraction F of the lensing-potential power removed before lensing the covariance
+    /// spectra, 0 <= F <= 1 (default 0).
+    #[arg(
+        long,
+        value_name = "F",
+        default_value_t = 0.0,
+        allow_hyphen_values = true
+    )]
+    pub delensing: f64,
     /// Transfer-table cache.
     #[command(flatten)]
     pub cache: CacheArgs,
@@ -315,6 +329,9 @@ pub struct SpectraArgs {
     /// Switch diffusion damping off.
     #[arg(long)]
     pub no_damping: bool,
+    /// Lensed spectra (full transfer only): adds D_l^BB and the lensing potential.
+    #[arg(long)]
+    pub lensed: bool,
     /// Transfer-table cache.
     #[command(flatten)]
     pub cache: CacheArgs,

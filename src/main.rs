@@ -219,6 +219,7 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                 shell_sigma_mpc: a.shell_width,
                 damping: !a.no_damping,
                 cache: cache_options(&a.cache),
+                lensed: a.lensed,
             };
             Ok(commands::spectra::spectra_report(&c, &src, &opts)?.render(a.common.format))
         }
@@ -281,6 +282,14 @@ fn run(cli: Cli) -> ngreach::Result<String> {
                 tau_nl: ngreach::shapes::lists_tau_nl(&a.shapes),
                 parallel: a.threads != Some(1),
                 cache: cache_options(&a.cache),
+                spectra: a.spectra.unwrap_or(
+                    if transfer == ngreach::scenario::TransferChoice::Shell {
+                        ngreach::cmb::lensing::CovarianceSpectra::Unlensed
+                    } else {
+                        ngreach::cmb::lensing::CovarianceSpectra::Lensed
+                    },
+                ),
+                delensing: a.delensing,
             };
             progress.step(
                 "CMB forecast: transfer functions, radial functions, Fisher sums",

@@ -161,6 +161,8 @@ pub struct CmbPieces {
     pub meta: Value,
     /// Radial functions (noise of the first experiment; others via `with_experiment`).
     pub plan: BispectrumPlan,
+    /// The lensed spectra of the covariance (`cmb_spectra = "lensed"`), else `None`.
+    pub lensed: Option<crate::cmb::lensing::LensedSpectra>,
 }
 
 /// One cache slot: computed once, success or the error message.
@@ -211,9 +213,11 @@ impl CmbCache {
     /// The key of a scenario's CMB pieces.
     pub fn key(sc: &Scenario) -> String {
         format!(
-            "{:?}|{:?}|{:?}|{}|{:?}|{:?}|{:?}",
+            "{:?}|{:?}|{:?}|{:?}|{:?}|{}|{:?}|{:?}|{:?}",
             sc.cosmology.params(),
             sc.transfer,
+            sc.cmb_spectra,
+            sc.delensing,
             sc.shell_width_mpc,
             sc.damping,
             sc.lmax.last(),
@@ -269,7 +273,30 @@ fn build_cmb_pieces(
     let lmax = *sc.lmax.last().unwrap_or(&2000);
     progress("CMB transfer functions");
     settings.progress.step("CMB transfer functions", None);
-    let (table, radial, meta) = cmb_transfer(sc, bg, lmax, &settings.cache)?;
+    let (table, radial, mut meta) = cmb_transfer(sc, bg, lmax, &settings.cache)?;
+    let lensed = match sc.cmb_spectra {
+        crate::cmb::lensing::CovarianceSpectra::Lensed => {
+            progress("CMB lensing");
+            settings.progress.step("CMB lensing", None);
+            let th = ThermalHistory::new(c, bg)?;
+            let l = crate::cmb::lensing::lensing_of(
+                c,
+                &th,
+                bg,
+                &table,
+                lmax,
+                sc.delensing,
+                1,
+                parallel,
+            )?;
+            Some(l.lensed)
+        }
+        crate::cmb::lensing::CovarianceSpectra::Unlensed => None,
+    };
+    if let Value::Object(m) = &mut meta {
+        m.insert("cmb_spectra".into(), Value::from(sc.cmb_spectra.label()));
+        m.insert("delensing".into(), Value::from(sc.delensing));
+    }
     progress("CMB radial functions");
     settings.progress.step("CMB radial functions", None);
     let inp = CmbFisherInput {
@@ -282,6 +309,7 @@ fn build_cmb_pieces(
         field_sets: &sc.fields,
         radial: &radial,
         parallel,
+        signal_cl: lensed.as_ref(),
     };
     let plan = BispectrumPlan::new(&inp);
     Ok(CmbPieces {
@@ -289,6 +317,7 @@ fn build_cmb_pieces(
         radial,
         meta,
         plan,
+        lensed,
     })
 }
 
@@ -327,9 +356,13 @@ pub fn run_scenario_cached(
             settings
                 .progress
                 .step(&format!("CMB bispectrum Fisher sums: {}", e.name), None);
-            let p = pieces
-                .plan
-                .with_experiment(&pieces.table, &prim, e, c.params().t_cmb_k);
+            let p = pieces.plan.with_experiment(
+                &pieces.table,
+                &prim,
+                e,
+                c.params().t_cmb_k,
+                pieces.lensed.as_ref(),
+            );
             let forecast = cmb_fisher_with_plan(&p, &sc.lmax, settings.parallel);
             let tau = if sc.tau_nl {
                 progress(&format!("CMB collapsed trispectrum (tau_NL): {}", e.name));

@@ -10,6 +10,8 @@
 //! fields = ["T", "E", "T+E"]         # optional
 //! probes = ["P", "B", "P+B"]         # optional
 //! transfer = "full"                  # or "shell" (default "full")
+//! cmb_spectra = "lensed"              # covariance: "lensed" (default with "full") or "unlensed"
+//! delensing = 0.0                     # fraction of C^{phi phi} removed before lensing, 0..=1
 //! linear_power = "eisenstein-hu"     # or "boltzmann" (the survey side's T(k))
 //!
 //! [cosmology]                        # optional; Planck 2018 defaults
@@ -30,6 +32,7 @@ use toml::Spanned;
 
 use crate::cmb::bispectrum::FieldSet;
 use crate::cmb::experiment::{Experiment, ExperimentFile};
+use crate::cmb::lensing::CovarianceSpectra;
 use crate::cosmology::{Background, Cosmology, CosmologyTable, Growth};
 use crate::error::{Error, Location, Result};
 use crate::input::{Source, parse_toml};
@@ -137,6 +140,8 @@ struct ScenarioTable {
     /// Survey covariance model for every survey ("realistic" or "gaussian"); overrides
     /// the survey files' `covariance`.
     covariance: Option<crate::survey::CovarianceModel>,
+    cmb_spectra: Option<Spanned<CovarianceSpectra>>,
+    delensing: Option<Spanned<f64>>,
 }
 
 fn yes() -> bool {
@@ -227,6 +232,11 @@ pub struct Scenario {
     pub linear_power: LinearPowerChoice,
     /// Shell width override in Mpc (shell model).
     pub shell_width_mpc: Option<f64>,
+    /// Spectra of the CMB covariance (`cmb_spectra`; lensed by default with the full
+    /// transfer, unlensed with the shell model).
+    pub cmb_spectra: CovarianceSpectra,
+    /// Fraction of the lensing-potential power removed (`delensing`, 0..=1).
+    pub delensing: f64,
     /// Diffusion damping on (shell model).
     pub damping: bool,
     /// Output options.
@@ -447,6 +457,44 @@ pub fn resolve_scenario(src: &Source, files: &dyn FileResolver) -> Result<Scenar
         }
         None => None,
     };
+    let transfer = t
+        .transfer
+        .as_ref()
+        .map_or(TransferChoice::Full, |v| *v.get_ref());
+    let cmb_spectra = match &t.cmb_spectra {
+        Some(v) => {
+            if *v.get_ref() == CovarianceSpectra::Lensed && transfer == TransferChoice::Shell {
+                return Err(Error::Conflict {
+                    at: src.at(v),
+                    message: "cmb_spectra = \"lensed\" needs transfer = \"full\"".into(),
+                });
+            }
+            *v.get_ref()
+        }
+        None if transfer == TransferChoice::Shell => CovarianceSpectra::Unlensed,
+        None => CovarianceSpectra::Lensed,
+    };
+    let delensing = match &t.delensing {
+        Some(v) => {
+            let x = *v.get_ref();
+            if !(x.is_finite() && (0.0..=1.0).contains(&x)) {
+                return Err(Error::out_of_range(
+                    src.at(v),
+                    "delensing",
+                    x,
+                    "0 <= delensing <= 1 (fraction of the lensing-potential power removed)",
+                ));
+            }
+            if cmb_spectra == CovarianceSpectra::Unlensed && x != 0.0 {
+                return Err(Error::Conflict {
+                    at: src.at(v),
+                    message: "delensing applies to cmb_spectra = \"lensed\" only".into(),
+                });
+            }
+            x
+        }
+        None => 0.0,
+    };
     let mut experiments = Vec::new();
     for c in &f.cmb {
         match (&c.file, c.ideal) {
@@ -551,6 +599,8 @@ pub fn resolve_scenario(src: &Source, files: &dyn FileResolver) -> Result<Scenar
         transfer,
         linear_power,
         shell_width_mpc,
+        cmb_spectra,
+        delensing,
         damping: t.damping,
         output: f.output,
     })

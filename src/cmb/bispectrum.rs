@@ -26,6 +26,7 @@
 use rayon::prelude::*;
 
 use crate::cmb::experiment::Experiment;
+use crate::cmb::lensing::LensedSpectra;
 use crate::cmb::transfer::{Field, RadialGrid, TransferTable};
 use crate::cosmology::Primordial;
 use crate::fisher::FisherMatrix;
@@ -84,6 +85,9 @@ pub struct CmbFisherInput<'a> {
     pub radial: &'a RadialGrid,
     /// Run the outer loops in parallel.
     pub parallel: bool,
+    /// Signal spectra of the covariance (e.g. lensed); `None`: the unlensed C_l of the
+    /// transfer table.
+    pub signal_cl: Option<&'a LensedSpectra>,
 }
 
 /// Result: one Fisher matrix per (field set, l_max).
@@ -240,8 +244,15 @@ impl BispectrumPlan {
                 }
             }
         }
-        let cinv =
-            inverse_covariances(tr, &prim, inp.experiment, inp.t_cmb_k, inp.field_sets, lmax);
+        let cinv = inverse_covariances(
+            tr,
+            &prim,
+            inp.experiment,
+            inp.t_cmb_k,
+            inp.field_sets,
+            lmax,
+            inp.signal_cl,
+        );
         Self {
             lmax,
             n_r,
@@ -265,9 +276,18 @@ impl BispectrumPlan {
         prim: &Primordial,
         exp: &Experiment,
         t_cmb_k: f64,
+        signal_cl: Option<&LensedSpectra>,
     ) -> Self {
         Self {
-            cinv: inverse_covariances(tr, prim, exp, t_cmb_k, &self.field_sets, self.lmax),
+            cinv: inverse_covariances(
+                tr,
+                prim,
+                exp,
+                t_cmb_k,
+                &self.field_sets,
+                self.lmax,
+                signal_cl,
+            ),
             f_sky: exp.f_sky,
             x: std::sync::Arc::clone(&self.x),
             exponents: self.exponents.clone(),
@@ -435,7 +455,8 @@ fn radial_lanes(
 }
 
 /// Inverse covariance [TT, TE, EE] per field set and l (zero outside the experiment's
-/// ranges): C = C_l (from the transfer table) + N_l (the experiment's noise).
+/// ranges): C = C_l (from the transfer table, or the given signal spectra, e.g. lensed)
+/// + N_l (the experiment's noise).
 fn inverse_covariances(
     tr: &TransferTable,
     prim: &Primordial,
@@ -443,6 +464,7 @@ fn inverse_covariances(
     t_cmb_k: f64,
     field_sets: &[FieldSet],
     lmax: usize,
+    signal: Option<&LensedSpectra>,
 ) -> Vec<Vec<[f64; 3]>> {
     let nl = lmax + 1;
     let prim = *prim;
@@ -452,7 +474,17 @@ fn inverse_covariances(
         (Some(a), Some(b)) => tr.cl(&prim, a, b),
         _ => vec![0.0; tr.lmax() + 1],
     };
-    let (ctt, cte, cee) = (cl(it, it), cl(it, ie), cl(ie, ie));
+    let (ctt, cte, cee) = match signal {
+        // The lensed spectra must cover every l of the sum (checked by the caller).
+        Some(s) => {
+            assert!(
+                s.tt.len() > lmax,
+                "signal spectra end below the Fisher sum's l_max"
+            );
+            (s.tt.clone(), s.te.clone(), s.ee.clone())
+        }
+        None => (cl(it, it), cl(it, ie), cl(ie, ie)),
+    };
     let mut cinv = Vec::new();
     for &fs in field_sets {
         let mut v = vec![[0.0; 3]; nl];
@@ -1495,6 +1527,7 @@ pub(crate) mod tests {
             field_sets: &[FieldSet::T],
             radial,
             parallel,
+            signal_cl: None,
         })
     }
 
@@ -1525,6 +1558,7 @@ pub(crate) mod tests {
             field_sets: &ALL_FIELD_SETS,
             radial,
             parallel,
+            signal_cl: None,
         })
     }
 

@@ -2,7 +2,8 @@
 //!
 //! - [`thermal`]: the thermal history of the photon-baryon plasma, i.e. hydrogen and
 //!   helium recombination (effective three-level atom of Seager, Sasselov & Scott 1999,
-//!   with the HeI corrections of Kholupenko et al. 2007, Switzer & Hirata 2008 and
+//!   with the hydrogen correction function of Rubino-Martin, Chluba, Fendt & Wandelt
+//!   2010 and the HeI corrections of Kholupenko et al. 2007, Switzer & Hirata 2008 and
 //!   Wong, Moss & Scott 2008),
 //!   the matter temperature, tanh reionization fixed by the optical depth, and what
 //!   follows from them: the optical depth and visibility function, the last-scattering
@@ -13,6 +14,8 @@
 //!   temperature, a tight-coupling E-mode model), a cheap source of transfer tables.
 //! - [`transfer`]: transfer-function tables Delta^X_l(k), the input of the engine.
 //! - [`experiment`]: noise, beams, sky fraction.
+//! - [`lensing`]: the lensing potential from the solver's Weyl potential and the lensed
+//!   spectra (curved-sky correlation functions) for the covariance of the Fisher sum.
 //! - [`bispectrum`]: the Fisher engine (T, E, T+E; cumulative in l_max).
 //! - [`collapsed`]: tau_NL from the collapsed trispectrum on the same radial functions.
 
@@ -20,6 +23,7 @@ pub mod bispectrum;
 pub mod boltzmann;
 pub mod collapsed;
 pub mod experiment;
+pub mod lensing;
 pub mod shell;
 mod stiff;
 pub mod thermal;

@@ -1456,6 +1456,7 @@ mod tests {
             field_sets: &[FieldSet::T],
             radial: rg,
             parallel: true,
+            signal_cl: None,
         };
         let plan = BispectrumPlan::new(&inp);
         let mut out = Vec::new();

@@ -8,6 +8,7 @@ use crate::cmb::bispectrum::{
 use crate::cmb::boltzmann::CacheOptions;
 use crate::cmb::collapsed::{CollapsedForecast, CollapsedSettings, tau_nl_fisher};
 use crate::cmb::experiment::{Experiment, validate_lmax};
+use crate::cmb::lensing::{CovarianceSpectra, lensing_of};
 use crate::cmb::thermal::ThermalHistory;
 use crate::combine::{log_slopes, sigmas};
 use crate::cosmology::{Background, Cosmology, Primordial};
@@ -39,6 +40,10 @@ pub struct CmbOptions {
     pub parallel: bool,
     /// Transfer-table cache of the Boltzmann solver (`--cache-dir`, `--no-cache`).
     pub cache: CacheOptions,
+    /// Spectra of the covariance (`--spectra`).
+    pub spectra: CovarianceSpectra,
+    /// Fraction of the lensing-potential power removed (`--delensing`).
+    pub delensing: f64,
 }
 
 /// Parses `--fields`.
@@ -83,6 +88,28 @@ pub fn cmb_report(
             message: "--no-damping applies to --transfer shell only".into(),
         });
     }
+    if !(0.0..=1.0).contains(&opts.delensing) || !opts.delensing.is_finite() {
+        return Err(Error::out_of_range(
+            Location::Flag("--delensing".into()),
+            "delensing",
+            opts.delensing,
+            "0 <= F <= 1 (fraction of the lensing-potential power removed)",
+        ));
+    }
+    if opts.spectra == CovarianceSpectra::Lensed && opts.transfer == TransferChoice::Shell {
+        return Err(Error::Conflict {
+            at: Location::Flag("--spectra".into()),
+            message: "lensed spectra need the Boltzmann transfer (--transfer full); use \
+                      --spectra unlensed with the shell model"
+                .into(),
+        });
+    }
+    if opts.spectra == CovarianceSpectra::Unlensed && opts.delensing != 0.0 {
+        return Err(Error::Conflict {
+            at: Location::Flag("--delensing".into()),
+            message: "--delensing applies to --spectra lensed only".into(),
+        });
+    }
     let bg = Background::new(c);
     let top = *lmax.last().unwrap_or(&2000);
     let th = ThermalHistory::new(c, &bg)?;
@@ -105,6 +132,19 @@ pub fn cmb_report(
     } else {
         opts.shapes.clone()
     };
+    let lensing = match opts.spectra {
+        CovarianceSpectra::Lensed => Some(lensing_of(
+            c,
+            &th,
+            &bg,
+            &table,
+            top,
+            opts.delensing,
+            1,
+            opts.parallel,
+        )?),
+        CovarianceSpectra::Unlensed => None,
+    };
     let inp = CmbFisherInput {
         transfer: &table,
         primordial: Primordial::new(c),
@@ -115,6 +155,7 @@ pub fn cmb_report(
         field_sets: &opts.fields,
         radial: &radial,
         parallel: opts.parallel,
+        signal_cl: lensing.as_ref().map(|l| &l.lensed),
     };
     let plan = BispectrumPlan::new(&inp);
     let mut fc = cmb_fisher_with_plan(&plan, &lmax, opts.parallel);
@@ -146,6 +187,17 @@ pub fn cmb_report(
         "sigma_conditional: other shapes fixed; sigma_marginal: marginalized over the other shapes listed".into(),
         "log_slope = d ln F_ii / d ln l_max of the conditional Fisher information (the S/N^2 scaling with resolution)".into(),
         format!("transfer: {}", table.label()),
+        format!(
+            "rows of a field set stop at its l_max (T {}, E {}, T+E the larger)",
+            exp.lmax_t, exp.lmax_e
+        ),
+        match opts.spectra {
+            CovarianceSpectra::Lensed => format!(
+                "covariance: lensed C_l (our lensing potential, curved-sky correlation functions), delensing {} of C^phiphi removed",
+                opts.delensing
+            ),
+            CovarianceSpectra::Unlensed => "covariance: unlensed C_l".into(),
+        },
     ];
     r.inputs = json!({
         "cosmology": super::cosmology_json(c, cosmo_source),
@@ -154,6 +206,8 @@ pub fn cmb_report(
         "lmax": lmax,
         "fields": opts.fields.iter().map(|f| f.label()).collect::<Vec<_>>(),
         "shapes": opts.shapes.iter().map(|s| s.name()).chain(opts.tau_nl.then(|| crate::shapes::TAU_NL.to_string())).collect::<Vec<_>>(),
+        "cmb_spectra": opts.spectra.label(),
+        "delensing": opts.delensing,
         "radial_nodes": radial.len(),
         "k_nodes": table.k().len(),
     });
@@ -172,6 +226,17 @@ pub fn cmb_report(
     let mut mats = Vec::new();
     for (m, &l) in fc.lmax.iter().enumerate() {
         for (ifs, fs) in fc.field_sets.iter().enumerate() {
+            // A field set's rows stop at its own l_max: beyond it the Fisher sum does
+            // not grow, and a row labelled with a larger l_max would misstate what was
+            // used.
+            let field_top = match fs {
+                FieldSet::T => exp.lmax_t,
+                FieldSet::E => exp.lmax_e,
+                FieldSet::TE => exp.lmax_t.max(exp.lmax_e),
+            };
+            if l > field_top {
+                continue;
+            }
             let f = &fc.fisher[ifs][m];
             let (cond, marg) = sigmas(f);
             for (is, s) in opts.shapes.iter().enumerate() {

@@ -1,5 +1,7 @@
-//! `ngreach spectra`: unlensed CMB power spectra D^TT_l, D^EE_l, D^TE_l from a transfer
-//! model (today: the idealized last-scattering shell of [`crate::cmb::shell`]).
+//! `ngreach spectra`: CMB power spectra D^TT_l, D^EE_l, D^TE_l from a transfer model
+//! (the idealized last-scattering shell of [`crate::cmb::shell`], or the Boltzmann
+//! solver), unlensed, or lensed with `--lensed` (then also D^BB_l and the lensing
+//! potential).
 //!
 //! D_l = l (l + 1) C_l / (2 pi) in microkelvin^2, with T_CMB of the cosmology.
 
@@ -39,6 +41,8 @@ pub struct SpectraOptions {
     pub damping: bool,
     /// Transfer-table cache of the Boltzmann solver (`--cache-dir`, `--no-cache`).
     pub cache: CacheOptions,
+    /// Lensed spectra (`--lensed`; full transfer only).
+    pub lensed: bool,
 }
 
 /// Checks the options.
@@ -74,6 +78,14 @@ pub fn validate(o: &SpectraOptions) -> Result<()> {
 /// Invalid options; a thermal history that fails (see [`ThermalHistory::new`]).
 pub fn spectra_report(c: &Cosmology, source: &str, o: &SpectraOptions) -> Result<Report> {
     validate(o)?;
+    if o.lensed && o.transfer != TransferKind::Full {
+        return Err(Error::Conflict {
+            at: Location::Flag("--lensed".into()),
+            message: "--lensed needs --transfer full (the lensing potential comes from the \
+                      Boltzmann solver)"
+                .into(),
+        });
+    }
     let bg = Background::new(c);
     let thermal = ThermalHistory::new(c, &bg)?;
     if o.transfer == TransferKind::Full {
@@ -123,6 +135,7 @@ pub fn spectra_report(c: &Cosmology, source: &str, o: &SpectraOptions) -> Result
     r.inputs = json!({
         "cosmology": super::cosmology_json(c, source),
         "transfer": o.transfer,
+        "spectra": "unlensed",
         "lmax": o.lmax,
         "shell_sigma_mpc": num(sigma),
         "shell_fwhm_mpc": num(sigma * FWHM_PER_SIGMA),
@@ -184,12 +197,34 @@ fn full_report(
     let s = crate::cmb::boltzmann::Spectra::from_table(&table, &prim);
     let t_uk = c.params().t_cmb_k * 1.0e6;
     let mut r = Report::new("spectra");
+    let kind = if o.lensed { "lensed" } else { "unlensed" };
     r.notes = vec![
-        format!("dl_*_uk2: D_l = l(l+1) C_l / 2pi in microkelvin^2 (uK^2), unlensed, T_CMB = {} K; ell is the multipole", c.params().t_cmb_k),
-        "transfer: line-of-sight Boltzmann solution (synchronous gauge, massless neutrinos, no lensing)".into(),
+        format!(
+            "dl_*_uk2: D_l = l(l+1) C_l / 2pi in microkelvin^2 (uK^2), {kind}, T_CMB = {} K; ell is the multipole",
+            c.params().t_cmb_k
+        ),
+        "transfer: line-of-sight Boltzmann solution (synchronous gauge, massless neutrinos)".into(),
     ];
-    r.inputs = json!({"cosmology": super::cosmology_json(c, source), "transfer": o.transfer, "lmax": o.lmax, "solver": meta});
-    dl_rows(&mut r, o.lmax, t_uk, &s.tt, &s.ee, &s.te);
+    r.inputs = json!({"cosmology": super::cosmology_json(c, source), "transfer": o.transfer, "spectra": kind, "lmax": o.lmax, "solver": meta});
+    if !o.lensed {
+        dl_rows(&mut r, o.lmax, t_uk, &s.tt, &s.ee, &s.te);
+        return Ok(r);
+    }
+    let lens = crate::cmb::lensing::lensing_of(c, th, bg, &table, o.lmax, 0.0, 1, true)?;
+    let l = &lens.lensed;
+    dl_rows(&mut r, o.lmax, t_uk, &l.tt, &l.ee, &l.te);
+    r.notes.push("lensing: our linear lensing potential (line of sight to L = 100, Limber above) and the curved-sky correlation-function method (Challinor & Lewis 2005); dl_bb_uk2: lensing B modes only; dl_pp: [L(L+1)]^2 C_L^{phi phi} / 2pi, dimensionless".into());
+    r.columns.push("dl_bb_uk2".into());
+    r.columns.push("dl_pp".into());
+    for (row, ell) in r.rows.iter_mut().zip(2..) {
+        let f = (ell * (ell + 1)) as f64 / (2.0 * std::f64::consts::PI);
+        row.push(num(f * t_uk * t_uk * l.bb[ell]));
+        row.push(num(f
+            * f
+            * 2.0
+            * std::f64::consts::PI
+            * lens.potential.pp[ell]));
+    }
     Ok(r)
 }
 
@@ -204,6 +239,7 @@ mod tests {
             shell_sigma_mpc: w,
             damping: true,
             cache: CacheOptions::disabled(),
+            lensed: false,
         }
     }
 

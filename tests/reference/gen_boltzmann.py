@@ -4,13 +4,12 @@
 Run from the repository root with the reference environment (never needed by the Rust
 tests):
 
-    /work/.venv-ref/bin/python tests/reference/gen_boltzmann.py
+    /work/venv-ref/bin/python tests/reference/gen_boltzmann.py
 
 Writes, next to itself:
 
-- cl_camb.tsv: camb's unlensed scalar C_l^TT, C_l^EE, C_l^TE (dimensionless, Delta T / T)
-  at l = 2..50 and every 5th l from 55 to 2500 (and the lensed TT around the first peak,
-  for the note on lensing beside the Planck peak check).
+- cl_camb.tsv: camb's unlensed and lensed scalar spectra and the lensing potential
+  (dimensionless, Delta T / T), see "Lensing" below.
 - matter_transfer_camb.tsv: camb's z = 0 matter transfer function T(k) of cold dark matter
   plus baryons (camb's `delta_nonu`), divided by k^2 and normalized to 1 at the smallest
   k of the table (1e-5 h/Mpc), for 1e-5 <= k <= 2 h/Mpc.
@@ -20,16 +19,22 @@ massless neutrinos only: H0 = 67.36, ombh2 = 0.02237, omch2 = 0.1200, nnu = 3.04
 num_massive_neutrinos = 0, TCMB = 2.7255, tau = 0.0544, YHe = 0.2453954288 (ngreach's BBN
 rule), As = exp(3.044) 1e-10, ns = 0.9649, pivot 0.05/Mpc.
 
-Recombination and reionization are set as in tests/reference/gen_thermal.py (`matched`):
-RECFAST hydrogen with the plain fudge factor 1.14 (RECFAST_Hswitch off), no extra HeI rate
-correction, RECFAST_fudge_He = 0.86, tanh reionization of width 0.5 in z, helium's second
-reionization at z = 3.5 of width 0.5. camb's HeI recombination carries the corrected
-physics (Sobolev escape, hydrogen continuum opacity, triplet channel) that ngreach's
-thermal history also has; x_e agrees to 2e-4 (see gen_thermal.py).
+Recombination: camb's DEFAULT (RECFAST with the modern hydrogen corrections, fudge 1.125
+and the double-Gaussian correction of the Lyman-alpha escape factor, and camb's default
+HeI treatment); the exact values are written to each header. Reionization matched to
+ngreach's model as in tests/reference/gen_thermal.py: tanh of width 0.5 in z, helium's
+second reionization at z = 3.5 of width 0.5, included below z = 7.5.
+
+Lensing: camb's default lensed spectra (curved-sky correlation-function method) of the
+linear lensing potential (NonLinear_none, camb's CAMBparams default; set_for_lmax would
+otherwise switch on a halofit correction) with lens_potential_accuracy = 1 (the setting
+camb's documentation recommends for lensed spectra at high l). cl_camb.tsv carries, at
+l = 2..50 and every 5th l from 55 to 3000: the unlensed TT, EE, TE, the lensed TT, EE, TE,
+BB, and the lensing potential C_L^{phi phi}, C_L^{T phi} (T as Delta T / T).
 
 Accuracy: AccuracyBoost = 2, lAccuracyBoost = 2, lSampleBoost = 50 (every l computed, no
-interpolation in l), so that camb's own numerical error is well below the 1% tolerance of
-the tests. Lensing off (unlensed spectra).
+interpolation in l), so that camb's own numerical error is well below the tolerances of
+the tests.
 """
 
 import datetime
@@ -54,7 +59,7 @@ TAU = 0.0544
 AS = math.exp(3.044) * 1e-10
 NS = 0.9649
 PIVOT = 0.05
-LMAX = 2500
+LMAX = 3000
 
 
 def helium_bbn(omega_b, n_eff):
@@ -67,7 +72,7 @@ def helium_bbn(omega_b, n_eff):
 YHE = helium_bbn(OMBH2, NNU)
 
 
-def make_params(lensing=False):
+def make_params(lensing=True):
     pars = camb.CAMBparams()
     pars.set_cosmology(
         H0=H0,
@@ -82,16 +87,18 @@ def make_params(lensing=False):
     )
     pars.InitPower.set_params(As=AS, ns=NS, pivot_scalar=PIVOT)
     pars.Reion.delta_redshift = 0.5
-    rec = pars.Recomb
-    rec.RECFAST_fudge = 1.14
-    rec.RECFAST_Hswitch = False
-    rec.RECFAST_He_rate_correction = False
-    rec.RECFAST_fudge_He = 0.86
     pars.Reion.helium_redshift = 3.5
     pars.Reion.helium_delta_redshift = 0.5
     pars.Reion.helium_redshiftstart = 3.5 + 8 * 0.5
-    pars.set_for_lmax(LMAX + 300, lens_potential_accuracy=1 if lensing else 0)
-    pars.DoLensing = lensing
+    if lensing:
+        pars.set_for_lmax(LMAX + 500, lens_potential_accuracy=1)
+        # set_for_lmax switches on a non-linear (halofit) correction of the lensing
+        # potential when lens_potential_accuracy > 0; ngreach's potential is linear, so the
+        # comparison is with camb's linear lensing (camb's CAMBparams default).
+        pars.NonLinear = model.NonLinear_none
+    else:
+        pars.set_for_lmax(LMAX + 300, lens_potential_accuracy=0)
+        pars.DoLensing = False
     pars.set_accuracy(AccuracyBoost=2.0, lSampleBoost=50.0, lAccuracyBoost=2.0)
     return pars
 
@@ -105,10 +112,16 @@ def header(f, what):
                  ("N_eff", NNU), ("Y_He", YHE), ("A_s", AS), ("n_s", NS),
                  ("k_pivot_mpc", PIVOT), ("tau_reio", TAU)):
         f.write(f"# param {k} {v!r}\n")
-    f.write("# camb: mnu=0 num_massive_neutrinos=0; RECFAST_fudge=1.14 RECFAST_Hswitch=False "
-            "RECFAST_He_rate_correction=False RECFAST_fudge_He=0.86; Reion.delta_redshift=0.5 "
-            "helium_redshift=3.5 helium_delta_redshift=0.5 helium_redshiftstart=7.5; "
-            "AccuracyBoost=2 lAccuracyBoost=2 lSampleBoost=50\n")
+    pp = make_params()
+    r = pp.Recomb
+    f.write(f"# camb: mnu=0 num_massive_neutrinos=0; default recombination: RECFAST_fudge={r.RECFAST_fudge!r} "
+            f"RECFAST_fudge_He={r.RECFAST_fudge_He!r} RECFAST_Hswitch={r.RECFAST_Hswitch} "
+            f"RECFAST_He_rate_correction={r.RECFAST_He_rate_correction} AGauss1={r.AGauss1!r} "
+            f"AGauss2={r.AGauss2!r} zGauss1={r.zGauss1!r} zGauss2={r.zGauss2!r} wGauss1={r.wGauss1!r} "
+            f"wGauss2={r.wGauss2!r}; Reion.delta_redshift=0.5 helium_redshift=3.5 "
+            f"helium_delta_redshift=0.5 helium_redshiftstart=7.5; AccuracyBoost=2 lAccuracyBoost=2 "
+            f"lSampleBoost=50; spectra: lens_potential_accuracy=1, NonLinear={pp.NonLinear}, "
+            f"DoLensing={pp.DoLensing}; matter transfer: a run without lensing\n")
 
 
 def l_list():
@@ -116,32 +129,35 @@ def l_list():
 
 
 def main():
-    pars = make_params()
+    res = camb.get_results(make_params())
+    cl = res.get_unlensed_scalar_cls(CMB_unit=None, raw_cl=True, lmax=LMAX)
+    der = res.get_derived_params()
+    lcl = res.get_lensed_scalar_cls(CMB_unit=None, raw_cl=True, lmax=LMAX)
+    pcl = res.get_lens_potential_cls(lmax=LMAX, CMB_unit=None, raw_cl=True)
+
+    pars = make_params(lensing=False)
     pars.WantTransfer = True
     pars.Transfer.high_precision = True
     pars.Transfer.kmax = 2.5 * H0 / 100
     pars.Transfer.k_per_logint = 40
     pars.set_matter_power(redshifts=[0.0], kmax=2.5, k_per_logint=40)
-    res = camb.get_results(pars)
-    cl = res.get_unlensed_scalar_cls(CMB_unit=None, raw_cl=True, lmax=LMAX)
-    der = res.get_derived_params()
-
-    lens_pars = make_params(lensing=True)
-    lres = camb.get_results(lens_pars)
-    lcl = lres.get_lensed_scalar_cls(CMB_unit=None, raw_cl=True, lmax=LMAX)
+    mres = camb.get_results(pars)
 
     out = os.path.join(HERE, "cl_camb.tsv")
     with open(out, "w") as f:
         header(f, "unlensed scalar CMB spectra from camb (dimensionless C_l of Delta T / T)")
         f.write(f"# camb derived: zstar {der['zstar']!r} thetastar {der['thetastar']!r} "
                 f"zdrag {der['zdrag']!r} kd {der['kd']!r}\n")
-        f.write("# TT_lensed: camb's lensed TT (lens_potential_accuracy=1), for information\n")
-        f.write("# columns: l TT EE TE TT_lensed\n")
+        f.write("# TT EE TE unlensed; *_lensed camb's lensed spectra; PP = C_L^{phi phi}, "
+                "TP = C_L^{T phi}\n")
+        f.write("# columns: l TT EE TE TT_lensed EE_lensed TE_lensed BB_lensed PP TP\n")
         for l in l_list():
-            f.write(f"{l} {cl[l, 0]:.12e} {cl[l, 1]:.12e} {cl[l, 3]:.12e} {lcl[l, 0]:.12e}\n")
+            f.write(f"{l} {cl[l, 0]:.12e} {cl[l, 1]:.12e} {cl[l, 3]:.12e} {lcl[l, 0]:.12e} "
+                    f"{lcl[l, 1]:.12e} {lcl[l, 3]:.12e} {lcl[l, 2]:.12e} {pcl[l, 0]:.12e} "
+                    f"{pcl[l, 1]:.12e}\n")
     print(f"wrote {out}", file=sys.stderr)
 
-    tr = res.get_matter_transfer_data()
+    tr = mres.get_matter_transfer_data()
     kh = tr.transfer_data[0, :, 0]
     dn = tr.transfer_data[model.Transfer_nonu - 1, :, 0]
     sel = (kh >= 0.99e-5) & (kh <= 2.0)

@@ -342,6 +342,29 @@ impl<'a> Mode<'a> {
         [s0, s1, s2, se]
     }
 
+    /// The Weyl potential Psi_W = (phi + psi) / 2 of the conformal Newtonian gauge
+    /// (MB95 Eq. 18: phi = eta - aH alpha, psi = alpha' + aH alpha, so
+    /// phi + psi = eta + alpha') and its conformal-time derivative (eta' + alpha'') / 2,
+    /// per unit primordial Phi; negative in potential wells (psi is the Newtonian potential).
+    pub fn weyl(&self, phase: Phase, eta: f64, y: &[f64], dy: &mut [f64]) -> (f64, f64) {
+        let b = self.tl.at(eta);
+        self.rhs_with(phase, &b, eta, y, dy);
+        let m = self.metric(phase, &b, y[ETA], y);
+        let k2 = self.k2;
+        let lay = self.lay;
+        let alpha = (m.hp + 6.0 * m.etap) / (2.0 * k2);
+        let shear = b.rho_g * m.sg + b.rho_n * m.sn;
+        let dalpha = y[ETA] - 2.0 * b.hub * alpha - 6.0 / k2 * shear;
+        let (dsg, dsn) = match phase {
+            Phase::Full => (0.5 * dy[lay.fg(2)], 0.5 * dy[lay.nu(2)]),
+            Phase::Tight => (0.0, 0.5 * dy[lay.nu(2)]),
+            Phase::Streaming => (0.0, 0.0),
+        };
+        let dshear = b.rho_g * (dsg - 2.0 * b.hub * m.sg) + b.rho_n * (dsn - 2.0 * b.hub * m.sn);
+        let ddalpha = m.etap - 2.0 * b.dhub * alpha - 2.0 * b.hub * dalpha - 6.0 / k2 * dshear;
+        (0.5 * (y[ETA] + dalpha), 0.5 * (m.etap + ddalpha))
+    }
+
     /// Total matter (CDM + baryon) density contrast of a state (synchronous gauge, which
     /// is comoving with the CDM).
     pub fn delta_matter(&self, y: &[f64], f_b: f64) -> f64 {

@@ -77,6 +77,47 @@ pub(crate) fn solve_mode(
     f_b: f64,
     ws: &mut Workspace,
 ) -> Result<ModeResult> {
+    let mut sources = vec![0.0; 4 * n_nodes];
+    let t_out = &nodes.eta[..n_nodes];
+    let (delta_m, steps) = integrate_mode(
+        k,
+        tl,
+        nodes,
+        t_out,
+        plan,
+        lay,
+        f_b,
+        ws,
+        |mode, phase, i, t, y, dy| {
+            let s = mode.sources(phase, t, y, dy, nodes.g[i], nodes.emt[i]);
+            sources[4 * i..4 * i + 4].copy_from_slice(&s);
+        },
+    )?;
+    Ok(ModeResult {
+        sources,
+        delta_m,
+        steps,
+    })
+}
+
+/// Integrates one mode from deep in radiation domination to today through its phases,
+/// calling `record(mode, phase, i, eta, y, scratch)` at every output time `t_out[i]`
+/// (increasing); returns the matter density contrast today and the accepted steps.
+#[allow(clippy::too_many_arguments)] // internal: the mode's inputs
+pub(crate) fn integrate_mode<R>(
+    k: f64,
+    tl: &Timeline,
+    nodes: &Nodes,
+    t_out: &[f64],
+    plan: &Plan,
+    lay: Layout,
+    f_b: f64,
+    ws: &mut Workspace,
+    mut record: R,
+) -> Result<(f64, usize)>
+where
+    R: FnMut(&Mode, Phase, usize, f64, &[f64], &mut [f64]),
+{
     let mode = Mode::new(k, tl, lay);
     let eta0 = tl.eta0();
     let tol = Tolerances {
@@ -88,8 +129,6 @@ pub(crate) fn solve_mode(
     let first_node = nodes.eta.first().copied().unwrap_or(eta0);
     let eta_tca = tight_coupling_end(tl, k, plan.eps_tca, eta_ini, first_node.max(eta_ini));
     let eta_rsa = (plan.k_eta_rsa / k).max(nodes.eta_rec_end).min(eta0);
-    let t_out = &nodes.eta[..n_nodes];
-    let mut sources = vec![0.0; 4 * n_nodes];
     let Workspace { ode, y, dy } = ws;
     ode.steps = 0;
     let fail = |m: String| Error::Numerical {
@@ -97,14 +136,13 @@ pub(crate) fn solve_mode(
         message: format!("k = {k} 1/Mpc: {m}"),
     };
 
-    let run = |phase: Phase,
-               t0: f64,
-               t1: f64,
-               h0: f64,
-               y: &mut [f64],
-               dy: &mut [f64],
-               ode: &mut Dopri,
-               sources: &mut [f64]|
+    let mut run = |phase: Phase,
+                   t0: f64,
+                   t1: f64,
+                   h0: f64,
+                   y: &mut [f64],
+                   dy: &mut [f64],
+                   ode: &mut Dopri|
      -> Result<()> {
         let n = lay.len(phase);
         let start = t_out.partition_point(|&x| x <= t0);
@@ -120,8 +158,7 @@ pub(crate) fn solve_mode(
             tol,
             t_out,
             |t, yy| {
-                let s = mode.sources(phase, t, yy, dys, nodes.g[next], nodes.emt[next]);
-                sources[4 * next..4 * next + 4].copy_from_slice(&s);
+                record(&mode, phase, next, t, yy, dys);
                 next += 1;
             },
         )
@@ -131,40 +168,18 @@ pub(crate) fn solve_mode(
     // Tight coupling.
     let nt = lay.len(Phase::Tight);
     mode.initial(eta_ini, &mut y[..nt]);
-    run(
-        Phase::Tight,
-        eta_ini,
-        eta_tca,
-        0.05 * eta_ini,
-        y,
-        dy,
-        ode,
-        &mut sources,
-    )?;
+    run(Phase::Tight, eta_ini, eta_tca, 0.05 * eta_ini, y, dy, ode)?;
     // Full hierarchies.
     mode.leave_tight(eta_tca, y);
     let b = tl.at(eta_tca);
     let h_full = 0.5 / ((1.0 + b.r) * b.kappa + k);
-    run(
-        Phase::Full,
-        eta_tca,
-        eta_rsa,
-        h_full,
-        y,
-        dy,
-        ode,
-        &mut sources,
-    )?;
+    run(Phase::Full, eta_tca, eta_rsa, h_full, y, dy, ode)?;
     // Radiation streaming.
     if eta_rsa < eta0 {
         let h = ode.last_h.max(1e-3 * eta_rsa);
-        run(Phase::Streaming, eta_rsa, eta0, h, y, dy, ode, &mut sources)?;
+        run(Phase::Streaming, eta_rsa, eta0, h, y, dy, ode)?;
     }
-    Ok(ModeResult {
-        sources,
-        delta_m: mode.delta_matter(y, f_b),
-        steps: ode.steps,
-    })
+    Ok((mode.delta_matter(y, f_b), ode.steps))
 }
 
 /// Sources on the mode k grid, with natural cubic splines in k per node and source.
