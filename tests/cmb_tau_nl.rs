@@ -151,6 +151,7 @@ fn basis_tolerance_study() {
         field_sets: &[FieldSet::T, FieldSet::TE],
         radial: &radial,
         parallel: true,
+        signal_cl: None,
     });
     let mut exact = None;
     for tol in [0.0, 1e-7, 1e-5, 1e-4, 1e-3] {

@@ -589,6 +589,7 @@ mod tests {
             field_sets: fs,
             radial: r,
             parallel: true,
+            signal_cl: None,
         })
     }
 
