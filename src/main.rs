@@ -267,10 +267,13 @@ fn run(cli: Cli) -> ngreach::Result<String> {
             let fields = commands::cmb::parse_fields(&a.fields)?;
             distinct_flag(&fields, "--fields")?;
             let shapes = commands::survey::parse_shapes(&a.shapes, "--shapes")?;
-            distinct_flag(
-                &shapes.iter().map(|s| s.name()).collect::<Vec<_>>(),
-                "--shapes",
-            )?;
+            // `--shapes tau_nl` alone is a valid CMB request (no f_NL shape).
+            if !(shapes.is_empty() && ngreach::shapes::lists_tau_nl(&a.shapes)) {
+                distinct_flag(
+                    &shapes.iter().map(|s| s.name()).collect::<Vec<_>>(),
+                    "--shapes",
+                )?;
+            }
             let opts = commands::cmb::CmbOptions {
                 experiment: exp,
                 transfer,

@@ -385,7 +385,6 @@ fn corpus() -> Vec<Case> {
         ("kmax_h_mpc = [0.0]", WITH_SURVEY, "kmax_h_mpc"),
         ("kmax_h_mpc = [nan]", WITH_SURVEY, "kmax_h_mpc"),
         ("kmax_h_mpc = [1e300]", WITH_SURVEY, "kmax_h_mpc"),
-        ("kmax_h_mpc = [5.0]", WITH_SURVEY, "allow-large"),
         ("shapes = [\"cubic\"]", WITH_SURVEY, "cubic"),
         ("probes = [\"Q\"]", WITH_SURVEY, "probes"),
         ("fields = [\"B\"]", WITH_CMB, "fields"),
@@ -594,11 +593,6 @@ fn corpus() -> Vec<Case> {
             plan(&vary("scenario.shapes", "[[\"local\", \"local\"]]")),
             "twice",
         ),
-        (
-            "kmax huge",
-            plan(&vary("scenario.kmax_h_mpc", "[[5.0]]")),
-            "allow-large",
-        ),
     ] {
         v.push(case(
             "plan",
@@ -707,7 +701,6 @@ fn corpus() -> Vec<Case> {
     ));
     // --- command-line flags.
     for (label, args, expect) in [
-        ("--kmax 5 (cost)", qf(&["--kmax", "5"]), "allow-large"),
         (
             "--volume 1e9 (cost)",
             vec![
