@@ -155,7 +155,7 @@ pub fn sigma_vs_kmax(r: &RunResult) -> Vec<Artifact> {
         let figure = (!series.is_empty()).then(|| {
             Figure::Lines(LinePlot {
                 title: format!("f_NL {shape}: survey versus CMB"),
-                x_label: "kₘₐₓ [h/Mpc]".into(),
+                x_label: crate::report::kmax_axis_label(r.surveys.iter().map(|s| &s.survey)),
                 y_label: format!("{}, marginalized over other shapes", sigma_label(&shape)),
                 log_x: true,
                 log_y: true,
@@ -360,7 +360,7 @@ pub fn joint_planes(r: &RunResult) -> Vec<Artifact> {
                         s.survey.name,
                         pb.label()
                     ),
-                    x_label: "kₘₐₓ [h/Mpc]".into(),
+                    x_label: crate::report::kmax_axis_label([&s.survey]),
                     y_label: format!("ℓₘₐₓ ({})", c.forecast.field_sets[fs].label()),
                     x: sc.kmax_h_mpc.clone(),
                     y: grid.iter().map(|&(l, _)| l as f64).collect(),
@@ -491,8 +491,9 @@ pub fn per_bin(r: &RunResult) -> Vec<Artifact> {
         let mut t = Table::new(
             &format!("per_bin_{}", slug(&s.survey.name)),
             &format!(
-                "{}: sigma(f_NL) per redshift bin at k_max = {} h/Mpc (nuisances marginalized per bin)",
+                "{}: sigma(f_NL) per redshift bin at {} = {} h/Mpc (each bin's own k_max in kmax_used_h_mpc; nuisances marginalized per bin)",
                 s.survey.name,
+                crate::report::kmax_name(&s.survey),
                 format_sig(sc.kmax_h_mpc[ik], 3)
             ),
             vec![
@@ -544,8 +545,9 @@ pub fn per_bin(r: &RunResult) -> Vec<Artifact> {
         }
         let figure = Figure::Steps(LinePlot {
             title: format!(
-                "{}: σ(f_NL) per redshift bin (kₘₐₓ = {} h/Mpc)",
+                "{}: σ(f_NL) per redshift bin ({} = {} h/Mpc)",
                 s.survey.name,
+                crate::report::kmax_name(&s.survey),
                 format_sig(sc.kmax_h_mpc[ik], 3)
             ),
             x_label: "z (bin edges)".into(),

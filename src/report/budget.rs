@@ -153,19 +153,12 @@ pub fn information_vs_lmax(r: &RunResult) -> Vec<Artifact> {
                 }
             }
         }
-        let figure = Figure::Lines(LinePlot {
-            title: format!("{}: cumulative information", c.experiment.name),
-            x_label: "ℓₘₐₓ".into(),
-            y_label: "(S/N)² for f_NL = 1 (single-shape)".into(),
-            log_x: true,
-            log_y: true,
+        out.push(cumulative_artifact(
+            t,
+            &c.experiment.name,
+            "ℓₘₐₓ".into(),
             series,
-            bands: vec![],
-        });
-        out.push(Artifact {
-            table: t,
-            figure: Some(figure),
-        });
+        ));
     }
     out
 }
@@ -222,19 +215,12 @@ pub fn information_vs_kmax(r: &RunResult) -> Vec<Artifact> {
                 }
             }
         }
-        let figure = Figure::Lines(LinePlot {
-            title: format!("{}: cumulative information", s.survey.name),
-            x_label: "kₘₐₓ [h/Mpc]".into(),
-            y_label: "(S/N)² for f_NL = 1 (single-shape)".into(),
-            log_x: true,
-            log_y: true,
+        out.push(cumulative_artifact(
+            t,
+            &s.survey.name,
+            crate::report::kmax_axis_label([&s.survey]),
             series,
-            bands: vec![],
-        });
-        out.push(Artifact {
-            table: t,
-            figure: Some(figure),
-        });
+        ));
     }
     out
 }
@@ -251,8 +237,9 @@ pub fn information_by_bin(r: &RunResult) -> Vec<Artifact> {
         let mut t = Table::new(
             &format!("information_by_bin_{}", slug(&s.survey.name)),
             &format!(
-                "{}: share of the single-shape (S/N)^2 for f_NL = 1 by redshift bin at k_max = {} h/Mpc",
+                "{}: share of the single-shape (S/N)^2 for f_NL = 1 by redshift bin at {} = {} h/Mpc",
                 s.survey.name,
+                crate::report::kmax_name(&s.survey),
                 format_sig(sc.kmax_h_mpc[ik], 3)
             ),
             vec![
@@ -291,6 +278,23 @@ pub fn information_by_bin(r: &RunResult) -> Vec<Artifact> {
         });
     }
     out
+}
+
+/// The cumulative-information figure (log-log, single-shape (S/N)^2 for f_NL = 1) of one
+/// experiment or survey, with its table.
+fn cumulative_artifact(t: Table, name: &str, x_label: String, series: Vec<Series>) -> Artifact {
+    Artifact {
+        table: t,
+        figure: Some(Figure::Lines(LinePlot {
+            title: format!("{name}: cumulative information"),
+            x_label,
+            y_label: "(S/N)² for f_NL = 1 (single-shape)".into(),
+            log_x: true,
+            log_y: true,
+            series,
+            bands: vec![],
+        })),
+    }
 }
 
 #[cfg(test)]

@@ -17,7 +17,7 @@ pub fn terminal_summary(r: &RunResult) -> String {
     let head = headline_probe(&sc.probes);
     out.push_str(&format!("ngreach {}: {}\n", crate::VERSION, sc.name));
     out.push_str(&format!(
-        "sigma(f_NL), marginalized over the other shapes; CMB: T+E at l_max = {}; surveys at k_max = {} h/Mpc\n",
+        "sigma(f_NL), marginalized over the other shapes; CMB: T+E at l_max = {}; surveys at k_max = {} h/Mpc (see each survey's line for its meaning and the per-bin table for each bin's value)\n",
         sc.lmax.last().copied().unwrap_or(0),
         format_sig(kx, 3)
     ));

@@ -305,6 +305,37 @@ pub fn num(x: f64) -> Value {
     serde_json::Number::from_f64(x).map_or(Value::Null, Value::Number)
 }
 
+/// The name of the survey k_max grid value for one survey: `k_max(z = 0)` when the
+/// survey's rule scales k_max with redshift, else `k_max` (each bin's own value, after
+/// the tree-level cap, is in the per-bin tables).
+pub fn kmax_name(s: &crate::survey::Survey) -> &'static str {
+    if s.kmax_scales_with_z() {
+        "k_max(z = 0)"
+    } else {
+        "k_max"
+    }
+}
+
+/// The k_max axis label of a figure over the surveys of a run (Unicode subscripts):
+/// `kₘₐₓ(z = 0)` when every survey scales k_max with redshift, a mixed label when some
+/// do, and a note that each bin is capped at its tree-level limit.
+pub fn kmax_axis_label<'a>(surveys: impl IntoIterator<Item = &'a crate::survey::Survey>) -> String {
+    let (mut growth, mut other) = (0, 0);
+    for s in surveys {
+        if s.kmax_scales_with_z() {
+            growth += 1;
+        } else {
+            other += 1;
+        }
+    }
+    let name = match (growth, other) {
+        (0, _) => "kₘₐₓ",
+        (_, 0) => "kₘₐₓ(z = 0)",
+        _ => "kₘₐₓ (z = 0 for growth-rule surveys)",
+    };
+    format!("{name} [h/Mpc], each bin capped at its tree-level limit")
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

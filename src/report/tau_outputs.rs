@@ -231,7 +231,7 @@ pub fn write_outputs(r: &RunResult, dir: &Path, written: &mut Vec<String>) -> Re
             stem,
             Figure::Lines(LinePlot {
                 title: "tau_NL: survey versus CMB".into(),
-                x_label: "k_max [h/Mpc]".into(),
+                x_label: crate::report::kmax_axis_label(r.surveys.iter().map(|s| &s.survey)),
                 y_label: "sigma(tau_NL), marginalized over f_NL local".into(),
                 log_x: true,
                 log_y: true,
