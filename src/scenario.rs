@@ -65,8 +65,9 @@ impl TransferChoice {
                 field: field.into(),
                 message: format!(
                     "the full CMB transfer (line-of-sight Boltzmann solver) needs a cosmological \
-                     constant (w0 = -1, wa = 0; dark-energy perturbations are not modelled), the \
-                     cosmology has w0 = {}, wa = {}; use transfer = \"shell\" (--transfer shell)",
+                     constant (dark_energy_w0 = -1, dark_energy_wa = 0; dark-energy perturbations \
+                     are not modelled), the cosmology has dark_energy_w0 = {}, dark_energy_wa = {}; \
+                     use transfer = \"shell\" (--transfer shell)",
                     p.w0, p.wa
                 ),
             });
@@ -112,9 +113,9 @@ impl LinearPowerChoice {
                 at,
                 field: field.into(),
                 message: format!(
-                    "`boltzmann` needs a cosmological constant (w0 = -1, wa = 0; dark-energy \
-                     perturbations are not modelled), the cosmology has w0 = {}, wa = {}; use \
-                     `eisenstein-hu`",
+                    "`boltzmann` needs a cosmological constant (dark_energy_w0 = -1, \
+                     dark_energy_wa = 0; dark-energy perturbations are not modelled), the \
+                     cosmology has dark_energy_w0 = {}, dark_energy_wa = {}; use `eisenstein-hu`",
                     p.w0, p.wa
                 ),
             });
@@ -545,7 +546,7 @@ pub fn resolve_scenario(src: &Source, files: &dyn FileResolver) -> Result<Scenar
         // The rule the run applies, checked here so that `check` refuses what `run` would.
         let at = match (&t.transfer, &f.cosmology) {
             (Some(v), _) => src.at(v),
-            (None, Some(_)) => src.find_key("cosmology", "w0"),
+            (None, Some(_)) => src.find_key("cosmology", "dark_energy_w0"),
             (None, None) => whole.clone(),
         };
         transfer.check(&cosmology, at, "transfer")?;

@@ -18,7 +18,19 @@ fn help_lists_subcommands() {
 fn background_json_contract() {
     let j = run_json(&["background", "--format", "json", "--z", "0,0.5,1,1100"]);
     assert!(j["version"].is_string());
-    assert!(j["inputs"]["cosmology"]["h"].is_number());
+    let c = &j["inputs"]["cosmology"];
+    assert!((c["hubble_constant_km_s_mpc"].as_f64().unwrap() - 67.36).abs() < 1e-9);
+    // The echo uses the input-file key names, so it can be pasted back into a file.
+    for key in [
+        "baryon_density_h2",
+        "reionization_optical_depth",
+        "dark_energy_w0",
+    ] {
+        assert!(c[key].is_number(), "{key}");
+    }
+    for old in ["h", "omega_b", "tau_reio", "A_s", "N_eff"] {
+        assert!(c.get(old).is_none(), "{old}");
+    }
     let s8 = j["sigma8"].as_f64().unwrap();
     assert!(s8 > 0.7 && s8 < 0.9, "{s8}");
     let rows = j["rows"].as_array().unwrap();
@@ -63,7 +75,11 @@ fn cosmology_file_changes_results() {
     let dir = std::env::temp_dir().join(format!("ngreach-bg-{}", std::process::id()));
     std::fs::create_dir_all(&dir).unwrap();
     let f = dir.join("c.toml");
-    std::fs::write(&f, "[cosmology]\nh = 0.7\nomega_c = 0.11\n").unwrap();
+    std::fs::write(
+        &f,
+        "[cosmology]\nhubble_constant_km_s_mpc = 70.0\ncdm_density_h2 = 0.11\n",
+    )
+    .unwrap();
     let j = run_json(&[
         "background",
         "--format",
@@ -74,7 +90,10 @@ fn cosmology_file_changes_results() {
         f.to_str().unwrap(),
     ]);
     assert!((j["rows"][0]["hubble_km_s_mpc"].as_f64().unwrap() - 70.0).abs() < 1e-9);
-    assert_eq!(j["inputs"]["cosmology"]["omega_c"].as_f64().unwrap(), 0.11);
+    assert_eq!(
+        j["inputs"]["cosmology"]["cdm_density_h2"].as_f64().unwrap(),
+        0.11
+    );
     std::fs::remove_dir_all(&dir).ok();
 }
 

@@ -424,10 +424,10 @@ fn check_validates_every_shipped_input() {
     assert!(o.status.success(), "{}", stderr(&o));
     assert_eq!(stdout(&o).lines().count(), files.len());
     assert!(stdout(&o).contains("valid"));
-    let o = run(&["check", "tests/bad_inputs/03_negative_h.toml"]);
+    let o = run(&["check", "tests/bad_inputs/03_negative_hubble.toml"]);
     assert_eq!(o.status.code(), Some(2));
     assert!(
-        stderr(&o).contains("03_negative_h.toml:4"),
+        stderr(&o).contains("03_negative_hubble.toml:4"),
         "{}",
         stderr(&o)
     );

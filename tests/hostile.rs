@@ -146,21 +146,22 @@ fn corpus() -> Vec<Case> {
     let mut v = Vec::new();
     // --- cosmology files: every key with every bad value (through `check`).
     for key in [
-        "omega_b",
-        "omega_c",
-        "h",
-        "n_s",
-        "a_s",
-        "k_pivot_mpc",
-        "tau_reio",
-        "t_cmb_k",
-        "n_eff",
-        "y_he",
-        "w0",
-        "wa",
+        "baryon_density_h2",
+        "cdm_density_h2",
+        "hubble_constant_km_s_mpc",
+        "spectral_index",
+        "scalar_amplitude",
+        "ln_1e10_scalar_amplitude",
+        "pivot_k_per_mpc",
+        "reionization_optical_depth",
+        "cmb_temperature_k",
+        "effective_neutrino_number",
+        "helium_mass_fraction",
+        "dark_energy_w0",
+        "dark_energy_wa",
     ] {
         for val in BAD_NUMBERS {
-            if (key == "wa" || key == "w0") && val == "-1.0" {
+            if key.starts_with("dark_energy") && val == "-1.0" {
                 continue; // valid dark-energy values
             }
             v.push(case(
@@ -175,12 +176,21 @@ fn corpus() -> Vec<Case> {
     for (label, text, expect) in [
         ("unknown key", "[cosmology]\nhubble = 70\n", "unknown key"),
         (
-            "both amplitudes",
-            "[cosmology]\na_s = 2e-9\nln10_10_a_s = 3.0\n",
-            "a_s",
+            "old key name",
+            "[cosmology]\nomega_b = 0.022\n",
+            "unknown key `omega_b`",
         ),
-        ("duplicate key", "[cosmology]\nh = 0.7\nh = 0.7\n", ":3:"),
-        ("syntax", "[cosmology\nh = 0.7\n", "syntax"),
+        (
+            "both amplitudes",
+            "[cosmology]\nscalar_amplitude = 2e-9\nln_1e10_scalar_amplitude = 3.0\n",
+            "not both",
+        ),
+        (
+            "duplicate key",
+            "[cosmology]\nspectral_index = 0.9\nspectral_index = 0.9\n",
+            ":3:",
+        ),
+        ("syntax", "[cosmology\nspectral_index = 0.9\n", "syntax"),
         ("empty", "", "not an ngreach input"),
         ("binary", "\u{1}\u{2}\u{3}", "c.toml"),
     ] {
@@ -429,8 +439,8 @@ fn corpus() -> Vec<Case> {
         ),
         (
             "",
-            "[[cmb]]\nfile = \"cmb_satellite.toml\"\n[cosmology]\nw0 = -0.9\n",
-            "w0",
+            "[[cmb]]\nfile = \"cmb_satellite.toml\"\n[cosmology]\ndark_energy_w0 = -0.9\n",
+            "dark_energy_w0",
         ),
         (
             "",
@@ -439,8 +449,8 @@ fn corpus() -> Vec<Case> {
         ),
         (
             "",
-            "[[survey]]\nfile = \"survey_wide_spectro.toml\"\n[cosmology]\nh = 5.0\n",
-            "h",
+            "[[survey]]\nfile = \"survey_wide_spectro.toml\"\n[cosmology]\nhubble_constant_km_s_mpc = 500.0\n",
+            "hubble_constant_km_s_mpc",
         ),
         (
             "kmax_h_mpc = [0.1]\nkmax_h_mpc = [0.2]",
@@ -449,8 +459,8 @@ fn corpus() -> Vec<Case> {
         ),
         (
             "linear_power = \"boltzmann\"",
-            "[[survey]]\nfile = \"survey_wide_spectro.toml\"\n[cosmology]\nw0 = -0.8\n",
-            "w0",
+            "[[survey]]\nfile = \"survey_wide_spectro.toml\"\n[cosmology]\ndark_energy_w0 = -0.8\n",
+            "dark_energy_w0",
         ),
     ] {
         v.push(case(
@@ -579,9 +589,9 @@ fn corpus() -> Vec<Case> {
             "unknown key",
         ),
         (
-            "w0 with full transfer",
-            plan(&vary("cosmology.w0", "[-0.9]")),
-            "w0",
+            "dark_energy_w0 with full transfer",
+            plan(&vary("cosmology.dark_energy_w0", "[-0.9]")),
+            "dark_energy_w0",
         ),
         (
             "empty probes",

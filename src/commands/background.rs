@@ -41,7 +41,7 @@ pub fn validate_z(z: &[f64]) -> Result<()> {
 /// as top-level summary values.
 ///
 /// # Errors
-/// Invalid redshifts; a `tau_reio` no reionization redshift reproduces; a failure of the
+/// Invalid redshifts; a `reionization_optical_depth` no reionization redshift reproduces; a failure of the
 /// recombination integration.
 pub fn background_report(c: &Cosmology, source: &str, z: &[f64]) -> Result<Report> {
     validate_z(z)?;
@@ -55,7 +55,7 @@ pub fn background_report(c: &Cosmology, source: &str, z: &[f64]) -> Result<Repor
         "flat cosmology, massless neutrinos; distances and conformal time in Mpc; H in km/s/Mpc".into(),
         "growth = D(z)/D(0); growth_md = D(z) normalized to a in matter domination (the f_NL convention); growth_rate = dlnD/dlna".into(),
         "sigma8 from A_s with the Eisenstein-Hu (1998) transfer function, R = 8 Mpc/h".into(),
-        "thermal history: Seager-Sasselov-Scott three-level hydrogen (fudge 1.14) and helium; tanh reionization (width 0.5 in z) at z_reio, fixed by tau_reio".into(),
+        "thermal history: Seager-Sasselov-Scott three-level hydrogen with fudge 1.125 and the Rubino-Martin, Chluba, Fendt & Wandelt (2010) multilevel correction, three-level helium; tanh reionization (width 0.5 in z) at z_reio, fixed by reionization_optical_depth".into(),
         "z_star: recombination optical depth 1; z_drag: drag depth 1; r_star_mpc, r_drag_mpc: comoving sound horizons; theta_star_100 = 100 r_star / D_M(z_star); k_damping_mpc: diffusion damping wavenumber at z_star (1/Mpc); shell_width_mpc: FWHM of the visibility in conformal distance".into(),
     ];
     r.inputs = json!({

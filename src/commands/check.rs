@@ -68,16 +68,20 @@ pub fn check_file_with(path: &Path, limits: &Limits) -> Result<(String, Vec<Stri
             let c = crate::cosmology::load_cosmology_file(path)?;
             let p = c.params();
             let full = crate::scenario::TransferChoice::Full
-                .check(&c, src.find_key("cosmology", "w0"), "w0")
+                .check(
+                    &c,
+                    src.find_key("cosmology", "dark_energy_w0"),
+                    "dark_energy_w0",
+                )
                 .err()
                 .map_or(String::new(), |_| {
-                    "; w0 != -1 or wa != 0: CMB forecasts need the shell transfer (--transfer shell), the full Boltzmann transfer models a cosmological constant only".to_string()
+                    "; dark_energy_w0 != -1 or dark_energy_wa != 0: CMB forecasts need the shell transfer (--transfer shell), the full Boltzmann transfer models a cosmological constant only".to_string()
                 });
             format!(
-                "{d}: cosmology, valid: omega_b = {}, omega_c = {}, h = {}, n_s = {}, A_s = {:.4e}, Omega_m = {:.4}{full}",
+                "{d}: cosmology, valid: baryon_density_h2 = {}, cdm_density_h2 = {}, hubble_constant_km_s_mpc = {}, spectral_index = {}, scalar_amplitude = {:.4e}, Omega_m = {:.4}{full}",
                 p.omega_b,
                 p.omega_c,
-                p.h,
+                100.0 * p.h,
                 p.n_s,
                 p.a_s,
                 c.omega_m()

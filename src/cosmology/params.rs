@@ -2,15 +2,33 @@
 //!
 //! The model is flat, with cold dark matter, baryons, photons, `N_eff` massless neutrino
 //! species and dark energy with the CPL equation of state w(a) = w0 + wa (1 - a)
-//! (Chevallier & Polarski 2001; Linder 2003). Densities are physical: `omega_b` =
-//! Omega_b h^2, `omega_c` = Omega_c h^2.
+//! (Chevallier & Polarski 2001; Linder 2003). Densities are physical: `baryon_density_h2`
+//! = Omega_b h^2, `cdm_density_h2` = Omega_c h^2.
+//!
+//! The `[cosmology]` keys of input files (and the same names in JSON echoes) are our own,
+//! descriptive, with units where they have one:
+//!
+//! | key | meaning |
+//! |---|---|
+//! | `baryon_density_h2` | Omega_b h^2 |
+//! | `cdm_density_h2` | Omega_c h^2 |
+//! | `hubble_constant_km_s_mpc` | H0 in km/s/Mpc |
+//! | `spectral_index` | n_s |
+//! | `scalar_amplitude` | A_s at the pivot |
+//! | `ln_1e10_scalar_amplitude` | ln(10^10 A_s), instead of `scalar_amplitude` |
+//! | `pivot_k_per_mpc` | pivot wavenumber in 1/Mpc |
+//! | `reionization_optical_depth` | Thomson optical depth to reionization |
+//! | `cmb_temperature_k` | T_CMB today in kelvin |
+//! | `effective_neutrino_number` | N_eff (massless species) |
+//! | `helium_mass_fraction` | Y_He (default: the BBN rule below) |
+//! | `dark_energy_w0`, `dark_energy_wa` | CPL w0, wa |
 //!
 //! The default is the Planck 2018 base-LCDM best fit for TT,TE,EE+lowE+lensing
 //! (Planck Collaboration VI 2020, A&A 641, A6, Table 2, last column but one), with the
 //! one massive neutrino of that fit replaced by massless ones (N_eff = 3.046), so our
 //! Omega_m = 0.3138 rather than the quoted 0.3153.
 //!
-//! Helium: when `Y_He` is not given, it follows the linear BBN fit
+//! Helium: when `helium_mass_fraction` is not given, it follows the linear BBN fit
 //! Y_He = 0.2454 + 0.0016 [(eta_10 - 6.13) + 100 (S - 1)], with eta_10 = 273.9 omega_b and
 //! S = sqrt(1 + 7 (N_eff - 3.046) / 43): the slopes are those of Steigman 2007 (Annu. Rev.
 //! Nucl. Part. Sci. 57, 463; from memory), anchored to the Planck 2018 BBN value
@@ -24,7 +42,7 @@ use crate::error::{Error, Location, Result};
 use crate::input::{Source, parse_toml};
 
 /// Raw cosmological parameters, before validation.
-#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq)]
 pub struct CosmoParams {
     /// Physical baryon density Omega_b h^2.
     pub omega_b: f64,
@@ -35,25 +53,43 @@ pub struct CosmoParams {
     /// Scalar spectral index.
     pub n_s: f64,
     /// Scalar amplitude of the curvature power spectrum at the pivot.
-    #[serde(rename = "A_s")]
     pub a_s: f64,
     /// Pivot scale in 1/Mpc.
     pub k_pivot_mpc: f64,
     /// Reionization optical depth.
     pub tau_reio: f64,
     /// CMB temperature today in kelvin.
-    #[serde(rename = "T_cmb_k")]
     pub t_cmb_k: f64,
     /// Effective number of massless neutrino species.
-    #[serde(rename = "N_eff")]
     pub n_eff: f64,
     /// Primordial helium mass fraction.
-    #[serde(rename = "Y_He")]
     pub y_he: f64,
     /// Dark-energy equation of state today.
     pub w0: f64,
     /// Its derivative in the CPL form w = w0 + wa (1 - a).
     pub wa: f64,
+}
+
+/// JSON echoes use the input-file key names (module docs), so that an echoed block can be
+/// pasted back into a `[cosmology]` table.
+impl serde::Serialize for CosmoParams {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> std::result::Result<S::Ok, S::Error> {
+        use serde::ser::SerializeStruct;
+        let mut m = s.serialize_struct("cosmology", 12)?;
+        m.serialize_field("baryon_density_h2", &self.omega_b)?;
+        m.serialize_field("cdm_density_h2", &self.omega_c)?;
+        m.serialize_field("hubble_constant_km_s_mpc", &(100.0 * self.h))?;
+        m.serialize_field("spectral_index", &self.n_s)?;
+        m.serialize_field("scalar_amplitude", &self.a_s)?;
+        m.serialize_field("pivot_k_per_mpc", &self.k_pivot_mpc)?;
+        m.serialize_field("reionization_optical_depth", &self.tau_reio)?;
+        m.serialize_field("cmb_temperature_k", &self.t_cmb_k)?;
+        m.serialize_field("effective_neutrino_number", &self.n_eff)?;
+        m.serialize_field("helium_mass_fraction", &self.y_he)?;
+        m.serialize_field("dark_energy_w0", &self.w0)?;
+        m.serialize_field("dark_energy_wa", &self.wa)?;
+        m.end()
+    }
 }
 
 impl CosmoParams {
@@ -116,36 +152,96 @@ impl Cosmology {
                 Err(Error::out_of_range(at(field), field, v, allowed))
             }
         };
-        check("omega_b", p.omega_b, 1e-3, 0.1, "0.001 <= omega_b <= 0.1")?;
-        check("omega_c", p.omega_c, 0.0, 0.6, "0 <= omega_c <= 0.6")?;
-        check("h", p.h, 0.2, 1.5, "0.2 <= h <= 1.5")?;
+        check(
+            "baryon_density_h2",
+            p.omega_b,
+            1e-3,
+            0.1,
+            "0.001 <= baryon_density_h2 <= 0.1",
+        )?;
+        check(
+            "cdm_density_h2",
+            p.omega_c,
+            0.0,
+            0.6,
+            "0 <= cdm_density_h2 <= 0.6",
+        )?;
+        check(
+            "hubble_constant_km_s_mpc",
+            100.0 * p.h,
+            20.0,
+            150.0,
+            "20 <= hubble_constant_km_s_mpc <= 150",
+        )?;
         if !(p.n_s > 0.5 && p.n_s < 1.5) {
             return Err(Error::out_of_range(
-                at("n_s"),
-                "n_s",
+                at("spectral_index"),
+                "spectral_index",
                 p.n_s,
-                "0.5 < n_s < 1.5",
+                "0.5 < spectral_index < 1.5",
             ));
         }
-        check("A_s", p.a_s, 1e-11, 1e-7, "1e-11 <= A_s <= 1e-7")?;
         check(
-            "k_pivot_mpc",
+            "scalar_amplitude",
+            p.a_s,
+            1e-11,
+            1e-7,
+            "1e-11 <= scalar_amplitude <= 1e-7",
+        )?;
+        check(
+            "pivot_k_per_mpc",
             p.k_pivot_mpc,
             1e-4,
             10.0,
-            "1e-4 <= k_pivot_mpc <= 10 (1/Mpc)",
+            "1e-4 <= pivot_k_per_mpc <= 10 (1/Mpc)",
         )?;
-        check("tau_reio", p.tau_reio, 0.0, 0.3, "0 <= tau_reio <= 0.3")?;
-        check("T_cmb_k", p.t_cmb_k, 1.0, 5.0, "1 <= T_cmb_k <= 5 (kelvin)")?;
-        check("N_eff", p.n_eff, 0.0, 10.0, "0 <= N_eff <= 10")?;
-        check("Y_He", p.y_he, 0.0, 0.5, "0 <= Y_He <= 0.5")?;
-        check("w0", p.w0, -3.0, -1.0 / 3.0, "-3 <= w0 <= -1/3")?;
-        check("wa", p.wa, -3.0, 3.0, "-3 <= wa <= 3")?;
+        check(
+            "reionization_optical_depth",
+            p.tau_reio,
+            0.0,
+            0.3,
+            "0 <= reionization_optical_depth <= 0.3",
+        )?;
+        check(
+            "cmb_temperature_k",
+            p.t_cmb_k,
+            1.0,
+            5.0,
+            "1 <= cmb_temperature_k <= 5 (kelvin)",
+        )?;
+        check(
+            "effective_neutrino_number",
+            p.n_eff,
+            0.0,
+            10.0,
+            "0 <= effective_neutrino_number <= 10",
+        )?;
+        check(
+            "helium_mass_fraction",
+            p.y_he,
+            0.0,
+            0.5,
+            "0 <= helium_mass_fraction <= 0.5",
+        )?;
+        check(
+            "dark_energy_w0",
+            p.w0,
+            -3.0,
+            -1.0 / 3.0,
+            "-3 <= dark_energy_w0 <= -1/3",
+        )?;
+        check(
+            "dark_energy_wa",
+            p.wa,
+            -3.0,
+            3.0,
+            "-3 <= dark_energy_wa <= 3",
+        )?;
         if p.w0 + p.wa >= 0.0 {
             return Err(Error::Conflict {
-                at: at("wa"),
+                at: at("dark_energy_wa"),
                 message: format!(
-                    "w0 + wa = {} must be negative, or dark energy dominates at early times",
+                    "dark_energy_w0 + dark_energy_wa = {} must be negative, or dark energy dominates at early times",
                     p.w0 + p.wa
                 ),
             });
@@ -155,10 +251,10 @@ impl Cosmology {
         let om = (p.omega_b + p.omega_c + omega_gamma + omega_nu) / (p.h * p.h);
         if om >= 0.99 {
             return Err(Error::Conflict {
-                at: at("h"),
+                at: at("hubble_constant_km_s_mpc"),
                 message: format!(
                     "Omega_m + Omega_r = {om:.4} leaves no dark energy in a flat universe; \
-                     lower omega_b/omega_c or raise h"
+                     lower baryon_density_h2/cdm_density_h2 or raise hubble_constant_km_s_mpc"
                 ),
             });
         }
@@ -268,36 +364,31 @@ impl Cosmology {
 #[serde(deny_unknown_fields)]
 pub struct CosmologyTable {
     /// Omega_b h^2.
-    pub omega_b: Option<Spanned<f64>>,
+    pub baryon_density_h2: Option<Spanned<f64>>,
     /// Omega_c h^2.
-    pub omega_c: Option<Spanned<f64>>,
-    /// h.
-    pub h: Option<Spanned<f64>>,
+    pub cdm_density_h2: Option<Spanned<f64>>,
+    /// H0 in km/s/Mpc.
+    pub hubble_constant_km_s_mpc: Option<Spanned<f64>>,
     /// n_s.
-    pub n_s: Option<Spanned<f64>>,
+    pub spectral_index: Option<Spanned<f64>>,
     /// A_s.
-    #[serde(rename = "A_s")]
-    pub a_s: Option<Spanned<f64>>,
+    pub scalar_amplitude: Option<Spanned<f64>>,
     /// ln(10^10 A_s), instead of A_s.
-    #[serde(rename = "ln10_10_A_s")]
-    pub ln10_10_a_s: Option<Spanned<f64>>,
+    pub ln_1e10_scalar_amplitude: Option<Spanned<f64>>,
     /// Pivot in 1/Mpc.
-    pub k_pivot_mpc: Option<Spanned<f64>>,
-    /// Optical depth.
-    pub tau_reio: Option<Spanned<f64>>,
+    pub pivot_k_per_mpc: Option<Spanned<f64>>,
+    /// Reionization optical depth.
+    pub reionization_optical_depth: Option<Spanned<f64>>,
     /// CMB temperature in K.
-    #[serde(rename = "T_cmb_k")]
-    pub t_cmb_k: Option<Spanned<f64>>,
+    pub cmb_temperature_k: Option<Spanned<f64>>,
     /// N_eff.
-    #[serde(rename = "N_eff")]
-    pub n_eff: Option<Spanned<f64>>,
+    pub effective_neutrino_number: Option<Spanned<f64>>,
     /// Helium mass fraction.
-    #[serde(rename = "Y_He")]
-    pub y_he: Option<Spanned<f64>>,
-    /// w0.
-    pub w0: Option<Spanned<f64>>,
-    /// wa.
-    pub wa: Option<Spanned<f64>>,
+    pub helium_mass_fraction: Option<Spanned<f64>>,
+    /// CPL w0.
+    pub dark_energy_w0: Option<Spanned<f64>>,
+    /// CPL wa.
+    pub dark_energy_wa: Option<Spanned<f64>>,
 }
 
 /// A file holding only a `[cosmology]` table.
@@ -317,21 +408,23 @@ impl CosmologyTable {
     pub fn resolve(&self, source: &Source) -> Result<Cosmology> {
         let mut p = CosmoParams::planck2018();
         let get = |v: &Option<Spanned<f64>>, d: f64| v.as_ref().map_or(d, |s| *s.get_ref());
-        p.omega_b = get(&self.omega_b, p.omega_b);
-        p.omega_c = get(&self.omega_c, p.omega_c);
-        p.h = get(&self.h, p.h);
-        p.n_s = get(&self.n_s, p.n_s);
-        p.k_pivot_mpc = get(&self.k_pivot_mpc, p.k_pivot_mpc);
-        p.tau_reio = get(&self.tau_reio, p.tau_reio);
-        p.t_cmb_k = get(&self.t_cmb_k, p.t_cmb_k);
-        p.n_eff = get(&self.n_eff, p.n_eff);
-        p.w0 = get(&self.w0, p.w0);
-        p.wa = get(&self.wa, p.wa);
-        match (&self.a_s, &self.ln10_10_a_s) {
+        p.omega_b = get(&self.baryon_density_h2, p.omega_b);
+        p.omega_c = get(&self.cdm_density_h2, p.omega_c);
+        p.h = get(&self.hubble_constant_km_s_mpc, 100.0 * p.h) / 100.0;
+        p.n_s = get(&self.spectral_index, p.n_s);
+        p.k_pivot_mpc = get(&self.pivot_k_per_mpc, p.k_pivot_mpc);
+        p.tau_reio = get(&self.reionization_optical_depth, p.tau_reio);
+        p.t_cmb_k = get(&self.cmb_temperature_k, p.t_cmb_k);
+        p.n_eff = get(&self.effective_neutrino_number, p.n_eff);
+        p.w0 = get(&self.dark_energy_w0, p.w0);
+        p.wa = get(&self.dark_energy_wa, p.wa);
+        match (&self.scalar_amplitude, &self.ln_1e10_scalar_amplitude) {
             (Some(_), Some(ln)) => {
                 return Err(Error::Conflict {
                     at: source.at(ln),
-                    message: "give either `A_s` or `ln10_10_A_s`, not both".into(),
+                    message:
+                        "give either `scalar_amplitude` or `ln_1e10_scalar_amplitude`, not both"
+                            .into(),
                 });
             }
             (Some(a), None) => p.a_s = *a.get_ref(),
@@ -340,40 +433,40 @@ impl CosmologyTable {
                 if !(1.0..=5.0).contains(&v) {
                     return Err(Error::out_of_range(
                         source.at(ln),
-                        "ln10_10_A_s",
+                        "ln_1e10_scalar_amplitude",
                         v,
-                        "1 <= ln10_10_A_s <= 5",
+                        "1 <= ln_1e10_scalar_amplitude <= 5",
                     ));
                 }
                 p.a_s = v.exp() * 1e-10;
             }
             (None, None) => {}
         }
-        p.y_he = match &self.y_he {
+        p.y_he = match &self.helium_mass_fraction {
             Some(y) => *y.get_ref(),
             None => helium_bbn(p.omega_b, p.n_eff),
         };
         let whole = Location::WholeFile(source.path().to_path_buf());
         let at = |field: &str| -> Location {
             let span = match field {
-                "omega_b" => &self.omega_b,
-                "omega_c" => &self.omega_c,
-                "h" => &self.h,
-                "n_s" => &self.n_s,
-                "A_s" => {
-                    if self.a_s.is_some() {
-                        &self.a_s
+                "baryon_density_h2" => &self.baryon_density_h2,
+                "cdm_density_h2" => &self.cdm_density_h2,
+                "hubble_constant_km_s_mpc" => &self.hubble_constant_km_s_mpc,
+                "spectral_index" => &self.spectral_index,
+                "scalar_amplitude" => {
+                    if self.scalar_amplitude.is_some() {
+                        &self.scalar_amplitude
                     } else {
-                        &self.ln10_10_a_s
+                        &self.ln_1e10_scalar_amplitude
                     }
                 }
-                "k_pivot_mpc" => &self.k_pivot_mpc,
-                "tau_reio" => &self.tau_reio,
-                "T_cmb_k" => &self.t_cmb_k,
-                "N_eff" => &self.n_eff,
-                "Y_He" => &self.y_he,
-                "w0" => &self.w0,
-                "wa" => &self.wa,
+                "pivot_k_per_mpc" => &self.pivot_k_per_mpc,
+                "reionization_optical_depth" => &self.reionization_optical_depth,
+                "cmb_temperature_k" => &self.cmb_temperature_k,
+                "effective_neutrino_number" => &self.effective_neutrino_number,
+                "helium_mass_fraction" => &self.helium_mass_fraction,
+                "dark_energy_w0" => &self.dark_energy_w0,
+                "dark_energy_wa" => &self.dark_energy_wa,
                 _ => &None,
             };
             span.as_ref().map_or(whole.clone(), |s| source.at(s))
@@ -426,12 +519,18 @@ mod tests {
 
     #[test]
     fn table_overrides_and_conflicts() {
-        let src = Source::from_text("c.toml", "[cosmology]\nh = 0.7\nln10_10_A_s = 3.0\n");
+        let src = Source::from_text(
+            "c.toml",
+            "[cosmology]\nhubble_constant_km_s_mpc = 70.0\nln_1e10_scalar_amplitude = 3.0\n",
+        );
         let f: CosmologyFile = parse_toml(&src).unwrap();
         let c = f.cosmology.resolve(&src).unwrap();
-        assert_eq!(c.h(), 0.7);
+        assert!((c.h() - 0.7).abs() < 1e-15);
         assert!((c.params().a_s - 3.0_f64.exp() * 1e-10).abs() < 1e-20);
-        let src = Source::from_text("c.toml", "[cosmology]\nA_s = 2e-9\nln10_10_A_s = 3.0\n");
+        let src = Source::from_text(
+            "c.toml",
+            "[cosmology]\nscalar_amplitude = 2e-9\nln_1e10_scalar_amplitude = 3.0\n",
+        );
         let f: CosmologyFile = parse_toml(&src).unwrap();
         let e = f.cosmology.resolve(&src).unwrap_err();
         assert!(e.to_string().contains("c.toml:3"), "{e}");
@@ -439,12 +538,17 @@ mod tests {
 
     #[test]
     fn range_error_names_line() {
-        let src = Source::from_text("c.toml", "[cosmology]\n\nh = -0.7\n");
+        let src = Source::from_text(
+            "c.toml",
+            "[cosmology]\n\nhubble_constant_km_s_mpc = -70.0\n",
+        );
         let f: CosmologyFile = parse_toml(&src).unwrap();
         let e = f.cosmology.resolve(&src).unwrap_err();
         let msg = e.to_string();
         assert!(
-            msg.contains("c.toml:3") && msg.contains("`h`") && msg.contains("-0.7"),
+            msg.contains("c.toml:3")
+                && msg.contains("`hubble_constant_km_s_mpc`")
+                && msg.contains("-70"),
             "{msg}"
         );
     }

@@ -287,8 +287,9 @@ impl BoltzmannSolver {
             return Err(Error::Conflict {
                 at: Location::Builtin,
                 message: format!(
-                    "the Boltzmann solver supports a cosmological constant only (w0 = -1, \
-                     wa = 0), got w0 = {}, wa = {}: dark-energy perturbations are not modelled",
+                    "the Boltzmann solver supports a cosmological constant only \
+                     (dark_energy_w0 = -1, dark_energy_wa = 0), got dark_energy_w0 = {}, \
+                     dark_energy_wa = {}: dark-energy perturbations are not modelled",
                     p.w0, p.wa
                 ),
             });

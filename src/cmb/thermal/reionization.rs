@@ -132,10 +132,10 @@ pub(super) fn solve_reionization(
     if fa > 0.0 || fb < 0.0 {
         return Err(Error::out_of_range(
             Location::Builtin,
-            "tau_reio",
+            "reionization_optical_depth",
             tau_reio,
             &format!(
-                "0 (no reionization) or {:.5} <= tau_reio <= {:.4} (z_re between {} and {})",
+                "0 (no reionization) or {:.5} <= reionization_optical_depth <= {:.4} (z_re between {} and {})",
                 fa + tau_reio,
                 fb + tau_reio,
                 Z_RE_RANGE.0,
