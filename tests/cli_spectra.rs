@@ -83,7 +83,7 @@ fn json_shape_and_resolved_inputs() {
     ] {
         assert!(inp[key].is_number(), "inputs lack {key}: {inp}");
     }
-    assert!(inp["cosmology"]["h"].is_number());
+    assert!(inp["cosmology"]["hubble_constant_km_s_mpc"].is_number());
     let rows = j["rows"].as_array().unwrap();
     assert_eq!(rows.len(), 59);
     for key in ["ell", "dl_tt_uk2", "dl_ee_uk2", "dl_te_uk2"] {
