@@ -292,3 +292,57 @@ fn overlapping_photometric_bins_are_refused() {
     );
     std::fs::remove_dir_all(&dir).ok();
 }
+
+/// The P_i/nbar shot-noise term of B has its own free amplitude (`b_shot_p`, a nuisance
+/// marginalized by default): fixing it (`[survey.nuisance] b_shot_p = false`, the
+/// idealized model in which P's shot noise or Poisson statistics calibrate it) can only
+/// tighten P+B, and B alone, where A_P is free anyway, does not move.
+#[test]
+fn bispectrum_p_over_nbar_amplitude_is_marginalized() {
+    let dir = std::env::temp_dir().join(format!("ngreach-bshotp-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let base = std::fs::read_to_string(root().join("tests/data/survey_stage4_spectro.toml"))
+        .unwrap()
+        .replace(
+            "z_edges = [0.9, 1.1, 1.3, 1.5, 1.7, 1.8]",
+            "z_edges = [0.9, 1.1]",
+        )
+        .replace(
+            "nbar_h3_mpc3 = [6.9e-4, 5.0e-4, 3.3e-4, 2.0e-4, 1.3e-4]",
+            "nbar_h3_mpc3 = [6.9e-4]",
+        )
+        .replace("b1 = [1.46, 1.61, 1.75, 1.90, 2.00]", "b1 = [1.46]");
+    let free = dir.join("free.toml");
+    let fixed = dir.join("fixed.toml");
+    std::fs::write(&free, &base).unwrap();
+    std::fs::write(
+        &fixed,
+        format!("{base}\n[survey.nuisance]\nb_shot_p = false\n"),
+    )
+    .unwrap();
+    let get = |f: &std::path::Path| {
+        run_json(&[
+            "survey",
+            f.to_str().unwrap(),
+            "--kmax",
+            "0.15",
+            "--shapes",
+            "equilateral",
+            "--format",
+            "json",
+        ])
+    };
+    let (a, b) = (get(&free), get(&fixed));
+    let (pb_free, pb_fixed) = (
+        sigma(&a, 0.15, "P+B", "equilateral", "sigma_conditional"),
+        sigma(&b, 0.15, "P+B", "equilateral", "sigma_conditional"),
+    );
+    println!("P+B sigma(f_NL eq): b_shot_p free {pb_free:.3}, fixed {pb_fixed:.3}");
+    assert!(pb_fixed < pb_free * 0.999, "{pb_fixed} vs {pb_free}");
+    let (b_free, b_fixed) = (
+        sigma(&a, 0.15, "B", "equilateral", "sigma_conditional"),
+        sigma(&b, 0.15, "B", "equilateral", "sigma_conditional"),
+    );
+    assert!(b_fixed <= b_free * (1.0 + 1e-9), "{b_fixed} vs {b_free}");
+    std::fs::remove_dir_all(&dir).ok();
+}
