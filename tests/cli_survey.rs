@@ -346,3 +346,46 @@ fn bispectrum_p_over_nbar_amplitude_is_marginalized() {
     assert!(b_fixed <= b_free * (1.0 + 1e-9), "{b_fixed} vs {b_free}");
     std::fs::remove_dir_all(&dir).ok();
 }
+
+/// The squeezed-cut response switches Delta b off at each tracer's k_S; that step is a
+/// sharp feature the Fisher matrix reads as information, so sigma(f_NL orthogonal) drops
+/// by a large factor once k_max passes a tracer's k_S. The full-shape response (the
+/// default; Desjacques, Jeong & Schmidt 2011) is smooth there.
+#[test]
+fn full_shape_response_has_no_step_at_the_tracer_scale() {
+    let dir = std::env::temp_dir().join(format!("ngreach-response-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let text = std::fs::read_to_string(root().join("surveys/survey_two_tracers.toml")).unwrap();
+    let cut = dir.join("cut.toml");
+    std::fs::write(
+        &cut,
+        text.replacen("[survey]\n", "[survey]\nresponse = \"squeezed-cut\"\n", 1),
+    )
+    .unwrap();
+    let ratio = |f: &std::path::Path| {
+        let j = run_json(&[
+            "survey",
+            f.to_str().unwrap(),
+            "--kmax",
+            "0.2,0.25",
+            "--probes",
+            "P",
+            "--shapes",
+            "orthogonal",
+            "--format",
+            "json",
+        ]);
+        sigma(&j, 0.2, "P", "orthogonal", "sigma_conditional")
+            / sigma(&j, 0.25, "P", "orthogonal", "sigma_conditional")
+    };
+    let (full, step) = (
+        ratio(&root().join("surveys/survey_two_tracers.toml")),
+        ratio(&cut),
+    );
+    println!(
+        "sigma(0.2) / sigma(0.25), P orthogonal: full-shape {full:.2}, squeezed-cut {step:.2}"
+    );
+    assert!(full < 1.5, "{full}");
+    assert!(step > 3.0, "{step}");
+    std::fs::remove_dir_all(&dir).ok();
+}

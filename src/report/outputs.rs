@@ -245,7 +245,7 @@ fn inputs_json(r: &RunResult) -> Value {
         "surveys": sc.surveys.iter().map(|s| json!({
             "name": s.name, "f_sky": s.f_sky, "redshift_error": s.redshift_error,
             "velocity_dispersion_km_s": s.velocity_dispersion_km_s, "kmax_rule": s.kmax_rule, "real_space": s.real_space,
-            "covariance": s.covariance.label(), "kmax_tree_h_mpc": s.kmax_tree_mpc / h, "kmax_meaning": crate::commands::survey::kmax_meaning(s),
+            "covariance": s.covariance.label(), "response": s.response.label(), "kmax_tree_h_mpc": s.kmax_tree_mpc / h, "kmax_meaning": crate::commands::survey::kmax_meaning(s),
             "bins": s.bins.iter().map(|b| json!({"z_min": b.z_min, "z_max": b.z_max, "z_eff": b.z_eff,
                 "volume_gpc3_h3": b.volume_mpc3 * h.powi(3) / 1e9})).collect::<Vec<_>>(),
             "tracers": s.tracers.iter().map(|t| json!({"name": t.name, "p": t.p,

@@ -254,7 +254,13 @@ fn bin_fisher(
         .iter()
         .map(|t| {
             let b = t.bins[ib];
-            TracerResponse::new(table, power, shapes, b.b1, b.b2, b.b_phi, z)
+            let r = TracerResponse::new(table, power, shapes, b.b1, b.b2, b.b_phi, z);
+            match survey.response {
+                crate::survey::ResponseModel::FullShape => {
+                    r.with_full_shape(table, power, shapes, b.b1, z)
+                }
+                crate::survey::ResponseModel::SqueezedCut => r,
+            }
         })
         .collect();
     let ptracers: Vec<PowerTracer> = survey

@@ -168,6 +168,8 @@ pub struct SurveyTable {
     pub kmax_tree_h_mpc: Option<Spanned<f64>>,
     /// Covariance model: "realistic" (default) or "gaussian".
     pub covariance: Option<CovarianceModel>,
+    /// Non-Gaussian bias response: "full-shape" (default) or "squeezed-cut".
+    pub response: Option<crate::survey::ResponseModel>,
     /// Real space (no redshift-space distortions).
     #[serde(default)]
     pub real_space: bool,
@@ -257,6 +259,8 @@ pub struct Survey {
     pub kmax_tree_mpc: f64,
     /// Covariance model.
     pub covariance: CovarianceModel,
+    /// Non-Gaussian bias response model.
+    pub response: crate::survey::ResponseModel,
     /// No redshift-space distortions.
     pub real_space: bool,
     /// Free nuisances.
@@ -335,6 +339,7 @@ impl Survey {
             sigma_nl: 0.5,
             kmax_tree_mpc: DEFAULT_KMAX_TREE_H_MPC * h,
             covariance: CovarianceModel::default(),
+            response: crate::survey::ResponseModel::default(),
             real_space,
             nuisance: NuisanceSwitches::default(),
             priors: NuisancePriors::default(),
@@ -642,6 +647,7 @@ impl SurveyTable {
             sigma_nl,
             kmax_tree_mpc: kmax_tree,
             covariance: self.covariance.unwrap_or_default(),
+            response: self.response.unwrap_or_default(),
             real_space: self.real_space,
             nuisance: self.nuisance,
             priors: self.priors,
