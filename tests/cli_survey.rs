@@ -224,6 +224,14 @@ fn survey_bad_inputs() {
     let o = run(&["survey", f.to_str().unwrap()]);
     assert_eq!(o.status.code(), Some(2));
     assert!(stderr(&o).contains("s.toml:4"), "{}", stderr(&o));
+    std::fs::write(&f, "[survey]\narea_deg2 = 1000\nz_edges = [0.5, 1.0]\nresponse = \"squeezed\"\n[[survey.tracer]]\nnbar_h3_mpc3 = 1e-3\nb1 = 2.0\n").unwrap();
+    let o = run(&["survey", f.to_str().unwrap()]);
+    assert_eq!(o.status.code(), Some(2));
+    let e = stderr(&o);
+    assert!(
+        e.contains("s.toml:4") && e.contains("response") && e.contains("squeezed-cut"),
+        "{e}"
+    );
     std::fs::remove_dir_all(&dir).ok();
 }
 
