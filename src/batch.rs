@@ -450,16 +450,26 @@ fn combined_table(folders: &[PathBuf]) -> Result<(Table, Vec<Value>, Vec<String>
         ("shape", "primordial shape"),
         ("lmax", "CMB l_max"),
         ("kmax_h_mpc", "survey k_max"),
-        ("sigma_cmb", "CMB sigma(f_NL) at this l_max, marginalized"),
+        (
+            "sigma_cmb",
+            "CMB sigma(f_NL) at this l_max, single-shape (other f_NL fixed)",
+        ),
         (
             "sigma_survey",
-            "survey sigma(f_NL) at this k_max, marginalized",
+            "survey sigma(f_NL) at this k_max, single-shape (other f_NL fixed, nuisances marginalized)",
         ),
-        ("sigma_joint", "joint sigma(f_NL), marginalized"),
-        ("improvement", "best single-probe sigma / joint sigma"),
+        ("sigma_joint", "joint sigma(f_NL), single-shape"),
+        (
+            "sigma_joint_marginal",
+            "joint sigma(f_NL), marginalized over the other shapes",
+        ),
+        (
+            "improvement",
+            "best single-probe sigma / joint sigma (single-shape)",
+        ),
         (
             "crossover_kmax_h_mpc",
-            "k_max where the survey beats the CMB at its largest l_max (empty: not reached)",
+            "k_max where the survey beats the CMB at its largest l_max, single-shape sigmas (empty: not reached)",
         ),
         (
             "crossover_status",
@@ -474,7 +484,7 @@ fn combined_table(folders: &[PathBuf]) -> Result<(Table, Vec<Value>, Vec<String>
         cols,
     );
     t.notes
-        .push("sigma(f_NL) marginalized over the other shapes, CMB convention; k in h/Mpc".into());
+        .push("sigma(f_NL) single-shape (other f_NL fixed, survey nuisances marginalized) unless the column says marginal, CMB convention; k in h/Mpc".into());
     let mut rows = Vec::new();
     let mut names = Vec::new();
     for (folder, vals, summary) in &loaded {
@@ -508,7 +518,12 @@ fn combined_table(folders: &[PathBuf]) -> Result<(Table, Vec<Value>, Vec<String>
             ] {
                 row.push(Cell::from_json(&r[k]));
             }
-            for k in ["sigma_cmb", "sigma_survey", "sigma_marginal"] {
+            for k in [
+                "sigma_cmb",
+                "sigma_survey",
+                "sigma_joint",
+                "sigma_joint_marginal",
+            ] {
                 row.push(match &r[k] {
                     Value::Null => Cell::Float(f64::INFINITY),
                     v => Cell::from_json(v),

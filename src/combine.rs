@@ -8,8 +8,11 @@
 //! F_joint(l_max, k_max) = F_CMB(l_max) + F_survey(k_max). Errors are reported
 //! conditional (other shapes fixed) and marginalized over the other shapes asked for.
 //!
-//! Crossover: for a survey probe and a shape, the k_max at which the survey's
-//! marginalized sigma falls below the CMB's (T+E, at the experiment's l_max), found by
+//! Crossover: for a survey probe and a shape, the k_max at which the survey's sigma falls
+//! below the CMB's (T+E, at the experiment's l_max), always with both sigmas on the same
+//! basis: the headline uses single-shape sigmas (other f_NL fixed, nuisances
+//! marginalized), and the run also reports it on sigmas marginalized over the other
+//! shapes (`crate::report::outputs::crossovers`). Found by
 //! linear interpolation of ln sigma in ln k_max between the bracketing grid points. When
 //! the survey is below the CMB already at the first grid point the crossover is reported
 //! at that point with `below_grid = true`; when it never gets below, `kmax_h_mpc` is

@@ -176,46 +176,78 @@ fn run_writes_every_output_and_matches_the_engines() {
             "{probe}: survey {a} vs run {b}"
         );
     }
-    // Crossover against a direct log-log interpolation of the survey rows.
+    // Crossover against a direct log-log interpolation of the survey rows, on both bases:
+    // single-shape sigmas (the headline keys) and sigmas marginalized over the other shapes
+    // (the `_marginal` keys), the CMB on the same basis as the survey.
     for cr in j["crossover"].as_array().unwrap() {
         let (probe, shape) = (cr["probe"].as_str().unwrap(), cr["shape"].as_str().unwrap());
-        let target = cr["cmb_sigma"].as_f64().unwrap();
-        let pts: Vec<(f64, f64)> = [0.03, 0.05, 0.1]
-            .iter()
-            .map(|&k| {
-                (
-                    k,
-                    find(&j["survey"], |r| {
-                        r["kmax_h_mpc"] == k && r["probe"] == probe && r["shape"] == shape
-                    })["sigma_marginal"]
-                        .as_f64()
-                        .unwrap_or(f64::INFINITY),
-                )
-            })
-            .collect();
-        let mut expect = None;
-        if pts[0].1 <= target {
-            expect = Some(pts[0].0);
-        } else {
-            for w in pts.windows(2) {
-                if w[1].1 <= target {
-                    let t = (target.ln() - w[0].1.ln()) / (w[1].1.ln() - w[0].1.ln());
-                    expect = Some((w[0].0.ln() + t * (w[1].0.ln() - w[0].0.ln())).exp());
-                    break;
+        for (row_key, k_key, target_key, note_key) in [
+            ("sigma_conditional", "kmax_h_mpc", "cmb_sigma", "note"),
+            (
+                "sigma_marginal",
+                "kmax_marginal_h_mpc",
+                "cmb_sigma_marginal",
+                "note_marginal",
+            ),
+        ] {
+            let target = cr[target_key].as_f64().unwrap();
+            let cmb = j["cmb"]
+                .as_array()
+                .unwrap()
+                .iter()
+                .filter(|r| {
+                    r["experiment"] == cr["experiment"]
+                        && r["fields"] == "T+E"
+                        && r["shape"] == shape
+                })
+                .max_by_key(|r| r["lmax"].as_u64().unwrap())
+                .unwrap()[row_key]
+                .as_f64()
+                .unwrap();
+            assert!(
+                (cmb / target - 1.0).abs() < 1e-12,
+                "{row_key}: {cmb} vs {target}"
+            );
+            let pts: Vec<(f64, f64)> = [0.03, 0.05, 0.1]
+                .iter()
+                .map(|&k| {
+                    (
+                        k,
+                        find(&j["survey"], |r| {
+                            r["kmax_h_mpc"] == k && r["probe"] == probe && r["shape"] == shape
+                        })[row_key]
+                            .as_f64()
+                            .unwrap_or(f64::INFINITY),
+                    )
+                })
+                .collect();
+            let mut expect = None;
+            if pts[0].1 <= target {
+                expect = Some(pts[0].0);
+            } else {
+                for w in pts.windows(2) {
+                    if w[1].1 <= target {
+                        let t = (target.ln() - w[0].1.ln()) / (w[1].1.ln() - w[0].1.ln());
+                        expect = Some((w[0].0.ln() + t * (w[1].0.ln() - w[0].0.ln())).exp());
+                        break;
+                    }
                 }
             }
-        }
-        match (expect, cr["kmax_h_mpc"].as_f64()) {
-            (Some(e), Some(g)) => {
-                assert!((e / g - 1.0).abs() < 1e-9, "{probe} {shape}: {e} vs {g}")
+            match (expect, cr[k_key].as_f64()) {
+                (Some(e), Some(g)) => {
+                    assert!(
+                        (e / g - 1.0).abs() < 1e-9,
+                        "{probe} {shape} {k_key}: {e} vs {g}"
+                    )
+                }
+                (None, None) => assert!(
+                    cr[note_key]
+                        .as_str()
+                        .unwrap()
+                        .contains("not reached below k = 0.1")
+                ),
+                (e, g) => panic!("{probe} {shape} {k_key}: expected {e:?}, got {g:?}"),
             }
-            (None, None) => assert!(
-                cr["note"]
-                    .as_str()
-                    .unwrap()
-                    .contains("not reached below k = 0.1")
-            ),
-            (e, g) => panic!("{probe} {shape}: expected {e:?}, got {g:?}"),
         }
     }
     std::fs::remove_dir_all(&out).ok();

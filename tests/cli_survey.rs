@@ -224,6 +224,14 @@ fn survey_bad_inputs() {
     let o = run(&["survey", f.to_str().unwrap()]);
     assert_eq!(o.status.code(), Some(2));
     assert!(stderr(&o).contains("s.toml:4"), "{}", stderr(&o));
+    std::fs::write(&f, "[survey]\narea_deg2 = 1000\nz_edges = [0.5, 1.0]\nresponse = \"squeezed\"\n[[survey.tracer]]\nnbar_h3_mpc3 = 1e-3\nb1 = 2.0\n").unwrap();
+    let o = run(&["survey", f.to_str().unwrap()]);
+    assert_eq!(o.status.code(), Some(2));
+    let e = stderr(&o);
+    assert!(
+        e.contains("s.toml:4") && e.contains("response") && e.contains("squeezed-cut"),
+        "{e}"
+    );
     std::fs::remove_dir_all(&dir).ok();
 }
 
@@ -290,5 +298,102 @@ fn overlapping_photometric_bins_are_refused() {
         e.contains("redshift_error") && e.contains("bin z = 0.6-1"),
         "{e}"
     );
+    std::fs::remove_dir_all(&dir).ok();
+}
+
+/// The P_i/nbar shot-noise term of B has its own free amplitude (`b_shot_p`, a nuisance
+/// marginalized by default): fixing it (`[survey.nuisance] b_shot_p = false`, the
+/// idealized model in which P's shot noise or Poisson statistics calibrate it) can only
+/// tighten P+B, and B alone, where A_P is free anyway, does not move.
+#[test]
+fn bispectrum_p_over_nbar_amplitude_is_marginalized() {
+    let dir = std::env::temp_dir().join(format!("ngreach-bshotp-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let base = std::fs::read_to_string(root().join("tests/data/survey_stage4_spectro.toml"))
+        .unwrap()
+        .replace(
+            "z_edges = [0.9, 1.1, 1.3, 1.5, 1.7, 1.8]",
+            "z_edges = [0.9, 1.1]",
+        )
+        .replace(
+            "nbar_h3_mpc3 = [6.9e-4, 5.0e-4, 3.3e-4, 2.0e-4, 1.3e-4]",
+            "nbar_h3_mpc3 = [6.9e-4]",
+        )
+        .replace("b1 = [1.46, 1.61, 1.75, 1.90, 2.00]", "b1 = [1.46]");
+    let free = dir.join("free.toml");
+    let fixed = dir.join("fixed.toml");
+    std::fs::write(&free, &base).unwrap();
+    std::fs::write(
+        &fixed,
+        format!("{base}\n[survey.nuisance]\nb_shot_p = false\n"),
+    )
+    .unwrap();
+    let get = |f: &std::path::Path| {
+        run_json(&[
+            "survey",
+            f.to_str().unwrap(),
+            "--kmax",
+            "0.15",
+            "--shapes",
+            "equilateral",
+            "--format",
+            "json",
+        ])
+    };
+    let (a, b) = (get(&free), get(&fixed));
+    let (pb_free, pb_fixed) = (
+        sigma(&a, 0.15, "P+B", "equilateral", "sigma_conditional"),
+        sigma(&b, 0.15, "P+B", "equilateral", "sigma_conditional"),
+    );
+    println!("P+B sigma(f_NL eq): b_shot_p free {pb_free:.3}, fixed {pb_fixed:.3}");
+    assert!(pb_fixed < pb_free * 0.999, "{pb_fixed} vs {pb_free}");
+    let (b_free, b_fixed) = (
+        sigma(&a, 0.15, "B", "equilateral", "sigma_conditional"),
+        sigma(&b, 0.15, "B", "equilateral", "sigma_conditional"),
+    );
+    assert!(b_fixed <= b_free * (1.0 + 1e-9), "{b_fixed} vs {b_free}");
+    std::fs::remove_dir_all(&dir).ok();
+}
+
+/// The squeezed-cut response switches Delta b off at each tracer's k_S; that step is a
+/// sharp feature the Fisher matrix reads as information, so sigma(f_NL orthogonal) drops
+/// by a large factor once k_max passes a tracer's k_S. The full-shape response (the
+/// default; Desjacques, Jeong & Schmidt 2011) is smooth there.
+#[test]
+fn full_shape_response_has_no_step_at_the_tracer_scale() {
+    let dir = std::env::temp_dir().join(format!("ngreach-response-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let text = std::fs::read_to_string(root().join("surveys/survey_two_tracers.toml")).unwrap();
+    let cut = dir.join("cut.toml");
+    std::fs::write(
+        &cut,
+        text.replacen("[survey]\n", "[survey]\nresponse = \"squeezed-cut\"\n", 1),
+    )
+    .unwrap();
+    let ratio = |f: &std::path::Path| {
+        let j = run_json(&[
+            "survey",
+            f.to_str().unwrap(),
+            "--kmax",
+            "0.2,0.25",
+            "--probes",
+            "P",
+            "--shapes",
+            "orthogonal",
+            "--format",
+            "json",
+        ]);
+        sigma(&j, 0.2, "P", "orthogonal", "sigma_conditional")
+            / sigma(&j, 0.25, "P", "orthogonal", "sigma_conditional")
+    };
+    let (full, step) = (
+        ratio(&root().join("surveys/survey_two_tracers.toml")),
+        ratio(&cut),
+    );
+    println!(
+        "sigma(0.2) / sigma(0.25), P orthogonal: full-shape {full:.2}, squeezed-cut {step:.2}"
+    );
+    assert!(full < 1.5, "{full}");
+    assert!(step > 3.0, "{step}");
     std::fs::remove_dir_all(&dir).ok();
 }

@@ -268,6 +268,10 @@ fn ecsv_tables_and_a_single_lmax() {
     let tex = std::fs::read_to_string(res.join("table.tex")).unwrap();
     assert_eq!(tex.matches("\\begin{table}").count(), 1);
     assert!(tex.contains("$k_\\times$ Halcyon"));
+    // Headline cells: single-shape sigma with the shape-marginalized value in parentheses.
+    assert!(tex.contains("single-shape") && tex.contains("in parentheses"));
+    let row = tex.lines().find(|l| l.starts_with("local &")).unwrap();
+    assert!(row.matches(" (").count() >= 2, "{row}");
     std::fs::remove_dir_all(&out).ok();
 }
 

@@ -167,7 +167,11 @@ pub fn survey_report(
         cov.describe().into(),
         kmax_note(survey, h),
         "P: continuous Fisher integral from k_min; B: tree level with the second-order non-Gaussian bias, exact triangle sum over the first bins plus continuum quadrature, full orientation dependence; P+B: shared nuisances".into(),
-        "scale-dependent bias referenced to each tracer's own scale k_S (peak-background split); the squeezed response of shapes with Delta > 0 is cut at k >= k_S".into(),
+        match survey.response {
+            crate::survey::ResponseModel::FullShape => "scale-dependent bias (response: full-shape): the whole primordial bispectrum against each tracer's Lagrangian window (peak-background split; Desjacques, Jeong & Schmidt 2011), tending to (k / k_S)^Delta with the tracer's own k_S on large scales",
+            crate::survey::ResponseModel::SqueezedCut => "scale-dependent bias (response: squeezed-cut): squeezed limit referenced to each tracer's own scale k_S (peak-background split), cut at k >= k_S for shapes with Delta > 0",
+        }
+        .into(),
         match opts.linear_power {
             LinearPowerChoice::EisensteinHu => "linear power: Eisenstein-Hu (1998) normalized from A_s",
             LinearPowerChoice::Boltzmann => "linear power: the Boltzmann solver's z = 0 matter transfer function, normalized from A_s",
@@ -330,6 +334,7 @@ fn survey_json(s: &Survey, h: f64) -> Value {
         "sigma_nl": s.sigma_nl,
         "kmax_tree_h_mpc": s.kmax_tree_mpc / h,
         "covariance": s.covariance.label(),
+        "response": s.response.label(),
         "real_space": s.real_space,
         "nuisance": s.nuisance,
         "priors": s.priors,

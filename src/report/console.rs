@@ -1,6 +1,8 @@
-//! The terminal summary of `ngreach run`: per survey, shapes by probe (marginalized sigma
-//! at the largest grid values) with the crossover k_max against each CMB experiment,
-//! then sigma per redshift bin. Numbers carry three significant digits, trailing zeros
+//! The terminal summary of `ngreach run`: per survey, shapes by probe at the largest grid
+//! values, each shape on two lines (single-shape sigma, other f_NL fixed and nuisances
+//! marginalized, the headline; then marginalized over the other shapes) with the
+//! crossover k_max against each CMB experiment on the same basis, then the single-shape
+//! sigma per redshift bin. Numbers carry three significant digits, trailing zeros
 //! kept, so columns line up in precision.
 
 use crate::pipeline::RunResult;
@@ -17,7 +19,8 @@ pub fn terminal_summary(r: &RunResult) -> String {
     let head = headline_probe(&sc.probes);
     out.push_str(&format!("ngreach {}: {}\n", crate::VERSION, sc.name));
     out.push_str(&format!(
-        "sigma(f_NL), marginalized over the other shapes; CMB: T+E at l_max = {}; surveys at k_max = {} h/Mpc (see each survey's line for its meaning and the per-bin table for each bin's value)\n",
+        "sigma(f_NL): each shape's first line single-shape (other f_NL fixed, nuisances marginalized),\nits `marg.` line marginalized over the other shapes; k_x: k_max where the survey's {} beats the CMB on the same basis\nCMB: T+E at l_max = {}; surveys at k_max = {} h/Mpc (see each survey's line for its meaning and the per-bin table for each bin's value)\n",
+        head.map_or("-", |p| p.label()),
         sc.lmax.last().copied().unwrap_or(0),
         format_sig(kx, 3)
     ));
@@ -55,46 +58,67 @@ pub fn terminal_summary(r: &RunResult) -> String {
         out.push_str(header.trim_end());
         out.push('\n');
         for (is, shape) in sc.shapes.iter().enumerate() {
-            let mut line = format!("{:<12}", short(&shape.name(), 12));
-            for c in &r.cmb {
-                let fs = cmb_reference_set(&c.forecast.field_sets);
-                line.push_str(&format!(
-                    "{:>10}",
-                    cell(
-                        c.forecast.fisher[fs]
-                            .last()
-                            .map_or(f64::NAN, |m| m.sigma_marginal_or_inf()[is])
-                    )
-                ));
-            }
-            for &p in &sc.probes {
-                line.push_str(&format!(
-                    "{:>8}",
-                    cell(
-                        s.forecast
-                            .total
-                            .last()
-                            .map_or(f64::NAN, |t| t[pidx(p)].sigma_marginal_or_inf()[is])
-                    )
-                ));
-            }
-            for c in &r.cmb {
-                let x = cross.iter().find(|x| {
-                    x.experiment == c.experiment.name
-                        && x.survey == s.survey.name
-                        && x.shape == shape.name()
-                        && Some(x.probe.as_str()) == head.map(|p| p.label())
-                });
-                let txt = match x.map(|x| (&x.crossover.kmax_h_mpc, x.crossover.below_grid)) {
-                    Some((Some(k), false)) => format!("{} h/Mpc", format_sig(*k, 2)),
-                    Some((Some(k), true)) => format!("<= {}", format_sig(*k, 2)),
-                    Some((None, _)) => format!("> {}", format_sig(kx, 2)),
-                    None => "-".into(),
+            // Two lines per shape: single-shape sigma (the headline), then marginalized
+            // over the other shapes; the crossover on the same basis in each line.
+            for marginal in [false, true] {
+                let pick = |f: &crate::fisher::FisherMatrix| {
+                    if marginal {
+                        f.sigma_marginal_or_inf()[is]
+                    } else {
+                        f.sigma_conditional(is)
+                    }
                 };
-                line.push_str(&format!("  {txt:<17}"));
+                let label = if marginal {
+                    "  marg.".to_string()
+                } else {
+                    short(&shape.name(), 12)
+                };
+                let mut line = format!("{label:<12}");
+                for c in &r.cmb {
+                    let fs = cmb_reference_set(&c.forecast.field_sets);
+                    line.push_str(&format!(
+                        "{:>10}",
+                        cell(c.forecast.fisher[fs].last().map_or(f64::NAN, pick))
+                    ));
+                }
+                for &p in &sc.probes {
+                    line.push_str(&format!(
+                        "{:>8}",
+                        cell(
+                            s.forecast
+                                .total
+                                .last()
+                                .map_or(f64::NAN, |t| pick(&t[pidx(p)]))
+                        )
+                    ));
+                }
+                for c in &r.cmb {
+                    let x = cross
+                        .iter()
+                        .find(|x| {
+                            x.experiment == c.experiment.name
+                                && x.survey == s.survey.name
+                                && x.shape == shape.name()
+                                && Some(x.probe.as_str()) == head.map(|p| p.label())
+                        })
+                        .map(|x| {
+                            if marginal {
+                                &x.crossover_marginal
+                            } else {
+                                &x.crossover
+                            }
+                        });
+                    let txt = match x.map(|x| (&x.kmax_h_mpc, x.below_grid)) {
+                        Some((Some(k), false)) => format!("{} h/Mpc", format_sig(*k, 2)),
+                        Some((Some(k), true)) => format!("<= {}", format_sig(*k, 2)),
+                        Some((None, _)) => format!("> {}", format_sig(kx, 2)),
+                        None => "-".into(),
+                    };
+                    line.push_str(&format!("  {txt:<17}"));
+                }
+                out.push_str(line.trim_end());
+                out.push('\n');
             }
-            out.push_str(line.trim_end());
-            out.push('\n');
         }
         out.push_str(&per_bin_block(r, s));
     }
@@ -102,7 +126,8 @@ pub fn terminal_summary(r: &RunResult) -> String {
     out
 }
 
-/// sigma(f_NL) per redshift bin (headline probe, marginalized) for one survey.
+/// Single-shape sigma(f_NL) per redshift bin (headline probe, nuisances marginalized)
+/// for one survey.
 fn per_bin_block(r: &RunResult, s: &crate::pipeline::SurveyResult) -> String {
     let sc = &r.scenario;
     let (Some(ik), Some(p)) = (
@@ -113,7 +138,7 @@ fn per_bin_block(r: &RunResult, s: &crate::pipeline::SurveyResult) -> String {
     };
     let h = sc.cosmology.h();
     let mut out = format!(
-        "  per redshift bin ({}, marginalized, each bin alone):\n",
+        "  per redshift bin ({}, single-shape, nuisances marginalized, each bin alone):\n",
         p.label()
     );
     let mut header = format!("  {:<13}{:>7}{:>12}", "z", "z_eff", "k_max used");
@@ -130,9 +155,9 @@ fn per_bin_block(r: &RunResult, s: &crate::pipeline::SurveyResult) -> String {
             format!("{:.2}", b.bin.z_eff),
             format_sig(b.kmax_used_mpc[ik] / h, 3)
         );
-        let sig = b.fisher[ik][pidx(p)].sigma_marginal_or_inf();
-        for v in sig.iter().take(sc.shapes.len()) {
-            line.push_str(&format!("{:>12}", cell(*v)));
+        let f = &b.fisher[ik][pidx(p)];
+        for is in 0..sc.shapes.len().min(f.len()) {
+            line.push_str(&format!("{:>12}", cell(f.sigma_conditional(is))));
         }
         out.push_str(line.trim_end());
         out.push('\n');

@@ -214,9 +214,9 @@ pub fn run_page(
         esc(crate::VERSION)
     ));
     s.push_str("<nav><a href=\"#headline\">Headline</a><a href=\"#crossover\">Crossover</a><a href=\"#figures\">Figures</a><a href=\"#bins\">Per bin</a><a href=\"#information\">Information</a><a href=\"#inputs\">Inputs</a><a href=\"#methods\">Methods</a></nav>\n");
-    s.push_str("<h2 id=\"headline\">Headline</h2>\n<p class=\"note\">Marginalized over the other shapes; CMB (T+E) at the largest l_max, surveys at the largest k_max; joint = CMB + survey Fisher matrices; improvement = best single probe / joint.</p>\n");
+    s.push_str("<h2 id=\"headline\">Headline</h2>\n<p class=\"note\">sigma_cmb, sigma_survey, sigma_joint: single-shape (other f_NL fixed, survey nuisances marginalized); *_marginal: marginalized over the other shapes; CMB (T+E) at the largest l_max, surveys at the largest k_max; joint = CMB + survey Fisher matrices; improvement = best single probe / joint.</p>\n");
     s.push_str(&json_table(array(summary, "rows"), &[]));
-    s.push_str("<h2 id=\"crossover\">Crossover</h2>\n<p class=\"note\">The k_max at which the survey's marginalized sigma falls below the CMB's (T+E at the experiment's l_max); null: not reached on the grid; below_grid: already below at the first grid point (a bound, not a found point).</p>\n");
+    s.push_str("<h2 id=\"crossover\">Crossover</h2>\n<p class=\"note\">The k_max at which the survey's single-shape sigma (other f_NL fixed, nuisances marginalized) falls below the CMB's (T+E at the experiment's l_max): kmax_h_mpc, below_grid; the same on sigmas marginalized over the other shapes: kmax_marginal_h_mpc, below_grid_marginal; null: not reached on the grid; below_grid: already below at the first grid point (a bound, not a found point).</p>\n");
     s.push_str(&json_table(array(summary, "crossover"), &[]));
     s.push_str("<h2 id=\"figures\">Figures</h2>\n");
     for (stem, svg) in svgs {
@@ -307,7 +307,7 @@ fn inline_svg(svg: &str) -> &str {
 pub fn batch_page(name: &str, rows: &[Value], folders: &[String]) -> String {
     let mut s = head(&format!("ngreach batch: {name}"));
     s.push_str(&format!(
-        "<h1>Batch: {}</h1>\n<p class=\"note\">ngreach {} · one row per scenario, experiment, survey, probe, shape, l_max and k_max; sigma(f_NL) marginalized, CMB convention; k in h/Mpc</p>\n",
+        "<h1>Batch: {}</h1>\n<p class=\"note\">ngreach {} · one row per scenario, experiment, survey, probe, shape, l_max and k_max; sigma(f_NL) single-shape unless the column says marginal, CMB convention; k in h/Mpc</p>\n",
         esc(name),
         esc(crate::VERSION)
     ));

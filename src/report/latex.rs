@@ -1,7 +1,8 @@
 //! `table.tex`: one booktabs table per survey (so each fits a page column or a page):
-//! shapes by probe, marginalized sigma(f_NL) for every CMB experiment (T+E) and survey
-//! probe, and the crossover k_max of the survey's headline probe against every
-//! experiment.
+//! shapes by probe, single-shape sigma(f_NL) (other f_NL fixed, nuisances marginalized)
+//! with the value marginalized over the other shapes in parentheses, for every CMB
+//! experiment (T+E) and survey probe, and the crossover k_max of the survey's headline
+//! probe against every experiment on the same two bases.
 
 use crate::pipeline::RunResult;
 use crate::report::artifacts::{cmb_reference_set, headline_probe, pidx};
@@ -39,7 +40,7 @@ pub fn latex_table(r: &RunResult) -> String {
         );
         t.push_str("\\begin{table}\n\\centering\n\\small\n");
         t.push_str(&format!(
-            "\\caption{{{}: forecast marginalized $\\sigma(f_{{\\rm NL}})$ (CMB convention). CMB at $\\ell_{{\\max}} = {}$ (each field capped at the experiment's own $\\ell_{{\\max}}$); survey probes at $k_{{\\max}} = {}\\,h\\,{{\\rm Mpc}}^{{-1}}$ ({} covariance; {}). $k_\\times$: the $k_{{\\max}}$ [$h\\,{{\\rm Mpc}}^{{-1}}$] at which the survey's {} beats each experiment.}}\n",
+            "\\caption{{{}: forecast single-shape $\\sigma(f_{{\\rm NL}})$ (CMB convention; other $f_{{\\rm NL}}$ fixed, survey nuisances marginalized), with the value marginalized over the other shapes in parentheses. CMB at $\\ell_{{\\max}} = {}$ (each field capped at the experiment's own $\\ell_{{\\max}}$); survey probes at $k_{{\\max}} = {}\\,h\\,{{\\rm Mpc}}^{{-1}}$ ({} covariance; {}). $k_\\times$: the $k_{{\\max}}$ [$h\\,{{\\rm Mpc}}^{{-1}}$] at which the survey's {} beats each experiment, single-shape (marginalized over the other shapes in parentheses).}}\n",
             tex(&s.survey.name),
             sc.lmax.last().copied().unwrap_or(0),
             format_sig(kx, 3),
@@ -58,22 +59,37 @@ pub fn latex_table(r: &RunResult) -> String {
         ));
         for (is, shape) in sc.shapes.iter().enumerate() {
             let mut cells = Vec::new();
+            let pair = |f: &crate::fisher::FisherMatrix| {
+                format!(
+                    "{} ({})",
+                    fmt_tex(f.sigma_conditional(is)),
+                    fmt_tex(f.sigma_marginal_or_inf()[is])
+                )
+            };
             for c in &r.cmb {
                 let fs = cmb_reference_set(&c.forecast.field_sets);
-                cells.push(fmt_tex(
+                cells.push(
                     c.forecast.fisher[fs]
                         .last()
-                        .map_or(f64::NAN, |m| m.sigma_marginal_or_inf()[is]),
-                ));
+                        .map_or_else(|| "--".into(), pair),
+                );
             }
             for &p in &sc.probes {
-                cells.push(fmt_tex(
+                cells.push(
                     s.forecast
                         .total
                         .last()
-                        .map_or(f64::NAN, |t| t[pidx(p)].sigma_marginal_or_inf()[is]),
-                ));
+                        .map_or_else(|| "--".into(), |t| pair(&t[pidx(p)])),
+                );
             }
+            let kcell = |x: Option<&crate::combine::Crossover>| match x
+                .map(|x| (x.kmax_h_mpc, x.below_grid))
+            {
+                Some((Some(k), true)) => format!("$\\le {}$", format_sig(k, 2)),
+                Some((Some(k), false)) => format_sig(k, 2),
+                Some((None, _)) => format!("$> {}$", format_sig(kx, 2)),
+                None => "--".into(),
+            };
             for c in &r.cmb {
                 let x = cross.iter().find(|x| {
                     x.experiment == c.experiment.name
@@ -81,14 +97,11 @@ pub fn latex_table(r: &RunResult) -> String {
                         && x.shape == shape.name()
                         && Some(x.probe.as_str()) == head.map(|p| p.label())
                 });
-                cells.push(
-                    match x.map(|x| (x.crossover.kmax_h_mpc, x.crossover.below_grid)) {
-                        Some((Some(k), true)) => format!("$\\le {}$", format_sig(k, 2)),
-                        Some((Some(k), false)) => format_sig(k, 2),
-                        Some((None, _)) => format!("$> {}$", format_sig(kx, 2)),
-                        None => "--".into(),
-                    },
-                );
+                cells.push(format!(
+                    "{} ({})",
+                    kcell(x.map(|x| &x.crossover)),
+                    kcell(x.map(|x| &x.crossover_marginal))
+                ));
             }
             t.push_str(&format!(
                 "{} & {} \\\\\n",

@@ -18,7 +18,9 @@ use crate::report::{num, write_atomic};
 pub use crate::report::console::terminal_summary;
 pub use crate::report::latex::latex_table;
 
-/// A crossover entry with its labels.
+/// A crossover entry with its labels: the headline crossover on single-shape sigmas
+/// (other f_NL fixed, nuisances marginalized) for both probes, and the one on sigmas
+/// marginalized over the other shapes beside it.
 #[derive(Debug, Clone, serde::Serialize)]
 pub struct CrossoverRow {
     /// CMB experiment.
@@ -29,35 +31,41 @@ pub struct CrossoverRow {
     pub probe: String,
     /// Shape.
     pub shape: String,
-    /// The result.
-    #[serde(flatten)]
+    /// On single-shape sigmas of both probes (the headline).
     pub crossover: Crossover,
+    /// On sigmas marginalized over the other shapes, for both probes.
+    pub crossover_marginal: Crossover,
 }
 
 /// Computes all crossovers: for each experiment (T+E at its largest l_max on the grid),
-/// survey, probe and shape, on marginalized sigmas.
+/// survey, probe and shape, on single-shape sigmas and on sigmas marginalized over the
+/// other shapes (the same basis for the CMB and the survey in each).
 pub fn crossovers(r: &RunResult) -> Vec<CrossoverRow> {
     let sc = &r.scenario;
     let mut out = Vec::new();
     for c in &r.cmb {
         let fs = cmb_reference_set(&c.forecast.field_sets);
         let f_cmb = c.forecast.fisher[fs].last().expect("non-empty l_max grid");
-        let (_, cmb_marg) = sigmas(f_cmb);
+        let (cmb_single, cmb_marg) = sigmas(f_cmb);
         for s in &r.surveys {
             for &p in &sc.probes {
                 for (is, shape) in sc.shapes.iter().enumerate() {
-                    let sig: Vec<f64> = s
+                    let (single, marg): (Vec<f64>, Vec<f64>) = s
                         .forecast
                         .total
                         .iter()
-                        .map(|t| t[pidx(p)].sigma_marginal_or_inf()[is])
-                        .collect();
+                        .map(|t| {
+                            let f = &t[pidx(p)];
+                            (f.sigma_conditional(is), f.sigma_marginal_or_inf()[is])
+                        })
+                        .unzip();
                     out.push(CrossoverRow {
                         experiment: c.experiment.name.clone(),
                         survey: s.survey.name.clone(),
                         probe: p.label().into(),
                         shape: shape.name(),
-                        crossover: crossover(&sc.kmax_h_mpc, &sig, cmb_marg[is]),
+                        crossover: crossover(&sc.kmax_h_mpc, &single, cmb_single[is]),
+                        crossover_marginal: crossover(&sc.kmax_h_mpc, &marg, cmb_marg[is]),
                     });
                 }
             }
@@ -138,14 +146,19 @@ pub fn summary_json(r: &RunResult) -> Value {
                         let (cc, cm) = sigmas(fc);
                         let (sc_, sm) = sigmas(fsv);
                         for (is, shape) in shapes.iter().enumerate() {
-                            let imp = improvement(&[cm[is], sm[is]], jm[is]);
+                            // Single-shape sigma (other f_NL fixed, nuisances marginalized)
+                            // in sigma_cmb / sigma_survey / sigma_joint; marginalized over the
+                            // other shapes beside them, as in the headline rows.
+                            let imp_single = improvement(&[cc[is], sc_[is]], jc[is]);
+                            let imp_marg = improvement(&[cm[is], sm[is]], jm[is]);
                             joint_rows.push(json!({"experiment": c.experiment.name, "cmb_fields": c.forecast.field_sets[fs].label(), "survey": s.survey.name,
                                 "probe": p.label(), "lmax": lm, "kmax_h_mpc": k, "shape": shape, "sigma_conditional": num(jc[is]),
-                                "sigma_marginal": num(jm[is]), "sigma_cmb": num(cm[is]), "sigma_survey": num(sm[is]), "improvement": num(imp)}));
+                                "sigma_marginal": num(jm[is]), "sigma_cmb": num(cc[is]), "sigma_survey": num(sc_[is]), "sigma_joint": num(jc[is]),
+                                "sigma_cmb_marginal": num(cm[is]), "sigma_survey_marginal": num(sm[is]), "sigma_joint_marginal": num(jm[is]),
+                                "improvement": num(imp_single), "improvement_marginal": num(imp_marg)}));
                             if m + 1 == c.forecast.lmax.len() && ik + 1 == sc.kmax_h_mpc.len() {
                                 // Headline: single-shape sigma (other f_NL fixed, nuisances
                                 // marginalized); marginalized over the other shapes beside it.
-                                let imp_single = improvement(&[cc[is], sc_[is]], jc[is]);
                                 rows.push(json!({"experiment": c.experiment.name, "survey": s.survey.name, "probe": p.label(), "shape": shape,
                                     "lmax": lm, "kmax_h_mpc": k, "sigma_cmb": num(cc[is]), "sigma_survey": num(sc_[is]), "sigma_joint": num(jc[is]),
                                     "sigma_cmb_marginal": num(cm[is]), "sigma_survey_marginal": num(sm[is]), "sigma_joint_marginal": num(jm[is]),
@@ -162,7 +175,9 @@ pub fn summary_json(r: &RunResult) -> Value {
         .map(|c| {
             json!({"experiment": c.experiment, "survey": c.survey, "probe": c.probe, "shape": c.shape,
                 "kmax_h_mpc": c.crossover.kmax_h_mpc, "below_grid": c.crossover.below_grid,
-                "cmb_sigma": num(c.crossover.cmb_sigma), "note": c.crossover.note})
+                "cmb_sigma": num(c.crossover.cmb_sigma), "note": c.crossover.note,
+                "kmax_marginal_h_mpc": c.crossover_marginal.kmax_h_mpc, "below_grid_marginal": c.crossover_marginal.below_grid,
+                "cmb_sigma_marginal": num(c.crossover_marginal.cmb_sigma), "note_marginal": c.crossover_marginal.note})
         })
         .collect();
     crate::report::tau_outputs::extend_summary(
@@ -177,10 +192,11 @@ pub fn summary_json(r: &RunResult) -> Value {
         "version": crate::VERSION,
         "units": [
             "k in h/Mpc; l dimensionless; sigma(f_NL) in the CMB convention (growth normalized to a in matter domination)",
-            "sigma_conditional: other shapes fixed; sigma_marginal: marginalized over the other shapes; survey nuisances marginalized per bin",
-            "CMB in comparisons: T+E at the largest l_max of the grid; crossover on marginalized sigma, ln-ln interpolation in k_max",
+            "sigma_conditional: other shapes fixed; sigma_marginal: marginalized over the other shapes; survey nuisances marginalized per bin (b1 and the P shot-noise amplitude per tracer; with B also b2, b_s2 and the B shot-noise amplitude; the theoretical-error amplitudes with the realistic covariance; each unless switched off in [survey.nuisance]; b_phi follows b1 and p, not free)",
+            "CMB in comparisons: T+E at the largest l_max of the grid; ln-ln interpolation in k_max",
+            "crossover: kmax_h_mpc, below_grid, cmb_sigma, note on single-shape sigmas of both probes (other f_NL fixed, nuisances marginalized; the headline); kmax_marginal_h_mpc, below_grid_marginal, cmb_sigma_marginal, note_marginal on sigmas marginalized over the other shapes",
             "joint = CMB + survey Fisher matrices (independent probes); improvement = best single-probe sigma / joint sigma",
-            "rows: sigma_cmb, sigma_survey, sigma_joint are single-shape constraints (other f_NL fixed, nuisances marginalized), improvement between them; *_marginal are marginalized over the other shapes",
+            "rows and joint: sigma_cmb, sigma_survey, sigma_joint are single-shape constraints (other f_NL fixed, nuisances marginalized), improvement between them; *_marginal (and improvement_marginal) are marginalized over the other shapes; joint sigma_conditional / sigma_marginal repeat sigma_joint / sigma_joint_marginal",
             "survey covariance per survey in inputs.surveys[].covariance and rows[].covariance (realistic: Gaussian + theoretical error + leading P-B cross-covariance; gaussian: P and B independent Gaussian)",
             "kmax_h_mpc: see inputs.surveys[].kmax_meaning (k_max(z = 0) for growth-rule surveys); each bin's k_max in per_bin[].kmax_used_h_mpc"
         ],
@@ -229,7 +245,7 @@ fn inputs_json(r: &RunResult) -> Value {
         "surveys": sc.surveys.iter().map(|s| json!({
             "name": s.name, "f_sky": s.f_sky, "redshift_error": s.redshift_error,
             "velocity_dispersion_km_s": s.velocity_dispersion_km_s, "kmax_rule": s.kmax_rule, "real_space": s.real_space,
-            "covariance": s.covariance.label(), "kmax_tree_h_mpc": s.kmax_tree_mpc / h, "kmax_meaning": crate::commands::survey::kmax_meaning(s),
+            "covariance": s.covariance.label(), "response": s.response.label(), "kmax_tree_h_mpc": s.kmax_tree_mpc / h, "kmax_meaning": crate::commands::survey::kmax_meaning(s),
             "bins": s.bins.iter().map(|b| json!({"z_min": b.z_min, "z_max": b.z_max, "z_eff": b.z_eff,
                 "volume_gpc3_h3": b.volume_mpc3 * h.powi(3) / 1e9})).collect::<Vec<_>>(),
             "tracers": s.tracers.iter().map(|t| json!({"name": t.name, "p": t.p,

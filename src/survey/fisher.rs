@@ -4,9 +4,12 @@
 //! covariance model of the survey ([`crate::survey::covariance`]), cumulative on a k_max
 //! grid; nuisances marginalized per bin; bins add.
 //!
-//! Per bin the nuisances (b1 per tracer, P shot-noise amplitude per tracer, b2, b_s2 and
-//! the B shot-noise amplitude of the bispectrum tracer) are marginalized (Schur
-//! complement), with optional Gaussian priors; P+B shares b1 and A_P between the probes.
+//! Per bin the nuisances (b1 per tracer, P shot-noise amplitude A_P per tracer, b2, b_s2
+//! and the two B shot-noise amplitudes of the bispectrum tracer, of the 1/nbar^2 term and
+//! of the P_i/nbar term) are marginalized (Schur complement), with optional Gaussian
+//! priors; P+B shares b1 and A_P between the probes. The P_i/nbar term of B has its own
+//! amplitude (a separate stochastic correlator in the bias expansion; Desjacques, Jeong
+//! & Schmidt 2018), so P's shot noise does not calibrate it.
 //! With the realistic covariance the theoretical-error mode amplitudes are marginalized
 //! first (Woodbury), P and B each with their own modes, and P+B adds the first-order P-B
 //! cross-covariance term. The bispectrum uses the first tracer of each bin; its
@@ -251,7 +254,13 @@ fn bin_fisher(
         .iter()
         .map(|t| {
             let b = t.bins[ib];
-            TracerResponse::new(table, power, shapes, b.b1, b.b2, b.b_phi, z)
+            let r = TracerResponse::new(table, power, shapes, b.b1, b.b2, b.b_phi, z);
+            match survey.response {
+                crate::survey::ResponseModel::FullShape => {
+                    r.with_full_shape(table, power, shapes, b.b1, z)
+                }
+                crate::survey::ResponseModel::SqueezedCut => r,
+            }
         })
         .collect();
     let ptracers: Vec<PowerTracer> = survey
@@ -399,6 +408,7 @@ fn marginalize_bin(
             (sw.b2, lay.b2(), pr.b2),
             (sw.bs2, lay.bs2(), pr.bs2),
             (sw.b_shot, lay.bshot(), pr.b_shot),
+            (sw.b_shot_p, lay.bshot_p(), pr.b_shot_p),
         ] {
             if on {
                 free.push(idx);
@@ -408,6 +418,12 @@ fn marginalize_bin(
             }
         }
     }
+    // A nuisance this probe carries no information on (e.g. A_P in B alone under the
+    // Gaussian covariance, where only B's own P_i/nbar amplitude multiplies that term)
+    // is decoupled: marginalizing it changes nothing, and keeping it would make the
+    // block singular.
+    free.retain(|&i| m.get(i, i) > 0.0);
+    priors.retain(|(i, _)| free.contains(i));
     let ns = lay.n_shapes;
     // Shapes with no information in this probe would make the matrix singular: keep
     // them out of the inversion and report zero information for them.

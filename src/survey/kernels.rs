@@ -205,7 +205,7 @@ impl BispectrumModel {
             db1 * dd + t.inv_n * (0..3).map(|i| 2.0 * z1[i] * p[i] * w_shot1[i]).sum::<f64>();
         g[lay.b2()] = db2 * dd;
         g[lay.bs2()] = dbs2 * dd;
-        g[lay.pshot(0)] = shot_p;
+        g[lay.bshot_p()] = shot_p;
         g[lay.bshot()] = shot_b;
         let pt: [f64; 3] = std::array::from_fn(|i| z1[i] * z1[i] * d2[i] * p[i] + t.inv_n);
         for s in 0..lay.n_shapes {
@@ -315,7 +315,14 @@ mod tests {
             b + ab * base.inv_n * base.inv_n
         };
         let th0 = [0.0, base.b1, 1.0, base.b2, base.bs2, 1.0];
-        let idx = [0, lay.b1(0), lay.pshot(0), lay.b2(), lay.bs2(), lay.bshot()];
+        let idx = [
+            0,
+            lay.b1(0),
+            lay.bshot_p(),
+            lay.b2(),
+            lay.bs2(),
+            lay.bshot(),
+        ];
         let mut g = vec![0.0; lay.n()];
         let ov = model.gradient(&tt, &mus, &base, &lay, &mut g);
         assert!((ov.b_fid / full(&th0) - 1.0).abs() < 1e-12);

@@ -1,6 +1,6 @@
 //! The parameter layout of one redshift bin: the f_NL of each shape, then per tracer b1
-//! and the P shot-noise amplitude, then b2, b_s2 and the B shot-noise amplitude of the
-//! bispectrum tracer (the first one).
+//! and the P shot-noise amplitude, then b2, b_s2 and the two B shot-noise amplitudes of
+//! the bispectrum tracer (the first one): of the 1/nbar^2 term and of the P_i/nbar term.
 
 /// Parameter layout of one bin.
 #[derive(Debug, Clone, Copy)]
@@ -14,7 +14,7 @@ pub struct Layout {
 impl Layout {
     /// Number of parameters.
     pub fn n(&self) -> usize {
-        self.n_shapes + 2 * self.n_tracers + 3
+        self.n_shapes + 2 * self.n_tracers + 4
     }
     /// Index of b1 of tracer t.
     pub fn b1(&self, t: usize) -> usize {
@@ -32,9 +32,14 @@ impl Layout {
     pub fn bs2(&self) -> usize {
         self.b2() + 1
     }
-    /// Index of the B shot-noise amplitude.
+    /// Index of the B shot-noise amplitude of the 1/nbar^2 term.
     pub fn bshot(&self) -> usize {
         self.b2() + 2
+    }
+    /// Index of the B shot-noise amplitude of the P_i/nbar term (a stochastic term of its
+    /// own, not tied to the P shot-noise amplitude).
+    pub fn bshot_p(&self) -> usize {
+        self.b2() + 3
     }
     /// Parameter names.
     pub fn names(&self, shapes: &[String], tracer_names: &[String]) -> Vec<String> {
@@ -46,6 +51,7 @@ impl Layout {
         v.push("b2".into());
         v.push("bs2".into());
         v.push("bshot".into());
+        v.push("bshot_p".into());
         v
     }
 }

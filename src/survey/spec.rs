@@ -94,9 +94,13 @@ pub struct NuisanceSwitches {
     /// Power-spectrum shot-noise amplitude per bin and tracer.
     #[serde(default = "yes")]
     pub p_shot: bool,
-    /// Bispectrum shot-noise amplitude per bin.
+    /// Bispectrum shot-noise amplitude of the 1/nbar^2 term per bin.
     #[serde(default = "yes")]
     pub b_shot: bool,
+    /// Bispectrum shot-noise amplitude of the P_i/nbar term per bin, free of the P
+    /// shot-noise amplitude (false: fixed at its Poisson value 1, the idealized model).
+    #[serde(default = "yes")]
+    pub b_shot_p: bool,
 }
 
 fn yes() -> bool {
@@ -111,6 +115,7 @@ impl Default for NuisanceSwitches {
             bs2: true,
             p_shot: true,
             b_shot: true,
+            b_shot_p: true,
         }
     }
 }
@@ -127,8 +132,10 @@ pub struct NuisancePriors {
     pub bs2: Option<f64>,
     /// On the P shot-noise amplitude (fiducial 1).
     pub p_shot: Option<f64>,
-    /// On the B shot-noise amplitude (fiducial 1).
+    /// On the B shot-noise amplitude of the 1/nbar^2 term (fiducial 1).
     pub b_shot: Option<f64>,
+    /// On the B shot-noise amplitude of the P_i/nbar term (fiducial 1).
+    pub b_shot_p: Option<f64>,
 }
 
 /// The `[survey]` table.
@@ -161,6 +168,8 @@ pub struct SurveyTable {
     pub kmax_tree_h_mpc: Option<Spanned<f64>>,
     /// Covariance model: "realistic" (default) or "gaussian".
     pub covariance: Option<CovarianceModel>,
+    /// Non-Gaussian bias response: "full-shape" (default) or "squeezed-cut".
+    pub response: Option<crate::survey::ResponseModel>,
     /// Real space (no redshift-space distortions).
     #[serde(default)]
     pub real_space: bool,
@@ -250,6 +259,8 @@ pub struct Survey {
     pub kmax_tree_mpc: f64,
     /// Covariance model.
     pub covariance: CovarianceModel,
+    /// Non-Gaussian bias response model.
+    pub response: crate::survey::ResponseModel,
     /// No redshift-space distortions.
     pub real_space: bool,
     /// Free nuisances.
@@ -328,6 +339,7 @@ impl Survey {
             sigma_nl: 0.5,
             kmax_tree_mpc: DEFAULT_KMAX_TREE_H_MPC * h,
             covariance: CovarianceModel::default(),
+            response: crate::survey::ResponseModel::default(),
             real_space,
             nuisance: NuisanceSwitches::default(),
             priors: NuisancePriors::default(),
@@ -503,6 +515,7 @@ impl SurveyTable {
             ("bs2", p.bs2),
             ("p_shot", p.p_shot),
             ("b_shot", p.b_shot),
+            ("b_shot_p", p.b_shot_p),
         ] {
             if let Some(x) = v {
                 if !(x.is_finite() && x > 0.0) {
@@ -634,6 +647,7 @@ impl SurveyTable {
             sigma_nl,
             kmax_tree_mpc: kmax_tree,
             covariance: self.covariance.unwrap_or_default(),
+            response: self.response.unwrap_or_default(),
             real_space: self.real_space,
             nuisance: self.nuisance,
             priors: self.priors,

@@ -58,6 +58,7 @@ fn power_spectrum_saturates_at_cosmic_variance() {
             bs2: false,
             p_shot: false,
             b_shot: false,
+            b_shot_p: false,
         };
         let fc = survey_fisher(&sv, &s.power, &s.bg, &shapes, &[0.1 * s.h], &st);
         sigma(&fc, 0, 0)
@@ -79,6 +80,7 @@ fn two_tracers_cancel_cosmic_variance() {
         bs2: false,
         p_shot: false,
         b_shot: false,
+        b_shot_p: false,
     };
     let mut two = one.clone();
     let mut t2 = two.tracers[0].clone();
@@ -120,6 +122,7 @@ fn bispectrum_matches_brute_force() {
         bs2: false,
         p_shot: false,
         b_shot: false,
+        b_shot_p: false,
     };
     let kmax = 0.08;
     let fc = survey_fisher(
