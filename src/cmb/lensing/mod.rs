@@ -1,7 +1,10 @@
 //! Gravitational lensing of the CMB: the lensing potential from our own Boltzmann
 //! solver ([`potential`]) and the lensed spectra ([`lensed_cl`]), put together by
-//! [`lensing_of`] for a transfer table of the unlensed CMB.
+//! [`lensing_of`] for a transfer table of the unlensed CMB; the ISW-lensing bispectrum
+//! ([`isw_bispectrum`]) and the bias it induces on f_NL ([`bias`]).
 
+pub mod bias;
+pub mod isw_bispectrum;
 pub mod lensed_cl;
 pub mod potential;
 
