@@ -79,6 +79,82 @@ pub fn bias_from(f: &FisherMatrix, cross: &[f64]) -> Bias {
     Bias { single, joint }
 }
 
+/// The sign convention and meaning of the bias columns, for output notes.
+pub const BIAS_NOTE: &str = "lensing_bias: Delta f_NL induced by the ISW-lensing bispectrum (f_NL units, CMB convention; positive: the lensing bispectrum mimics a positive f_NL of that shape), single-shape F_ss^-1 F_s,lens; lensing_bias_marginal: the joint (F^-1 F_lens)_s over the shapes of the run; same covariance as sigma";
+
+/// The ISW-lensing bias of a CMB forecast: the Fisher terms and what they were built
+/// from.
+#[derive(Debug, Clone, PartialEq)]
+pub struct LensingBias {
+    /// Cross and self terms per field set and l_max (the forecast's order).
+    pub fisher: LensingFisher,
+    /// The C^XY of the bispectrum: "lensed" (residual lensing of the delensing) or
+    /// "unlensed", the same spectra as the covariance.
+    pub spectra: &'static str,
+    /// Fraction of phi removed (C^{X phi} scaled by 1 - delensing).
+    pub delensing: f64,
+    /// Whether C^{E phi} entered (else only T legs carry phi).
+    pub e_phi: bool,
+}
+
+impl LensingBias {
+    /// Builds the Fisher terms for `plan` (its experiment and covariance).
+    pub fn compute(
+        plan: &BispectrumPlan,
+        radial: &RadialGrid,
+        isw: &IswLensingBispectrum,
+        spectra: &'static str,
+        delensing: f64,
+        lmax_grid: &[usize],
+        parallel: bool,
+    ) -> Self {
+        Self {
+            fisher: lensing_fisher(plan, radial, isw, lmax_grid, parallel),
+            spectra,
+            delensing,
+            e_phi: isw.has_e_phi(),
+        }
+    }
+
+    /// The bias at field set `ifs`, grid index `m`, given that point's shape Fisher matrix.
+    pub fn bias(&self, f: &FisherMatrix, ifs: usize, m: usize) -> Bias {
+        bias_from(f, &self.fisher.cross[ifs][m])
+    }
+
+    /// The ISW-lensing bispectrum's own signal-to-noise sqrt(F_lens,lens).
+    pub fn signal_to_noise(&self, ifs: usize, m: usize) -> f64 {
+        self.fisher.self_term[ifs][m].max(0.0).sqrt()
+    }
+
+    /// What the bispectrum was built from, in one sentence.
+    pub fn description(&self) -> String {
+        format!(
+            "ISW-lensing bispectrum b = (1/2)[L_a + L_b - L_c] C^{{X_a phi}}_la C^{{X_b X_c}}_lb + 5 perms (Goldberg & Spergel 1999; Lewis, Challinor & Hanson 2011) with the {} C^XY of the covariance, C^{{T phi}}{} from our lensing potential times (1 - delensing) = {}; E lensed with the spin-0 coupling (exact in the squeezed limit that carries the signal)",
+            self.spectra,
+            if self.e_phi { " and C^{E phi}" } else { "" },
+            1.0 - self.delensing
+        )
+    }
+
+    /// The JSON block of a report: description, convention and the Fisher terms.
+    pub fn to_json(&self) -> serde_json::Value {
+        serde_json::json!({
+            "description": self.description(),
+            "convention": BIAS_NOTE,
+            "bispectrum_spectra": self.spectra,
+            "delensing": self.delensing,
+            "e_phi_included": self.e_phi,
+            "lmax": self.fisher.lmax,
+            "per_field_set": self.fisher.field_sets.iter().enumerate().map(|(i, fs)| serde_json::json!({
+                "fields": fs.label(),
+                "fisher_cross_shape_lens": self.fisher.cross[i],
+                "fisher_lens_lens": self.fisher.self_term[i],
+                "isw_lensing_signal_to_noise": (0..self.fisher.lmax.len()).map(|m| self.signal_to_noise(i, m)).collect::<Vec<_>>(),
+            })).collect::<Vec<_>>(),
+        })
+    }
+}
+
 /// The plan's inverse covariance as a 2x2 matrix in the table's field indices.
 fn cinv_matrix(plan: &BispectrumPlan, fs: usize, l: usize) -> [[f64; 2]; 2] {
     let c = plan.inverse_covariance(fs, l);

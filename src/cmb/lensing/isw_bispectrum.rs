@@ -30,7 +30,12 @@
 //!   or unlensed), because the lensed spectrum captures the higher-order lensing of the
 //!   acoustic peaks in the non-perturbative bispectrum (Lewis, Challinor & Hanson 2011).
 
-use crate::cmb::transfer::Field;
+use crate::cmb::ThermalHistory;
+use crate::cmb::boltzmann::Spectra;
+use crate::cmb::lensing::{L_LOS, Lensing, WeylSource};
+use crate::cmb::transfer::{Field, TransferTable};
+use crate::cosmology::{Background, Cosmology, Primordial};
+use crate::error::Result;
 
 /// The spectra that define the ISW-lensing bispectrum (dimensionless, Delta T / T),
 /// indexed by l from 0.
@@ -154,6 +159,83 @@ pub fn gradient_legendre_all(lmax: usize, mu: f64, out: &mut [f64]) {
         let lf = l as f64;
         out[l] = ((2.0 * lf - 1.0) * mu * out[l - 1] - lf * out[l - 2]) / (lf - 1.0);
     }
+}
+
+/// Wavenumbers of the transfer table used for C^{E phi} (as for C^{T phi}: the lensing
+/// potential's line of sight converges well below this, 1/Mpc).
+const EP_K_MAX: f64 = 0.3;
+
+/// C_L^{E phi} for L = 0..=min(lmax, [`L_LOS`]) by the line of sight (E transfer functions of
+/// `table` times the lensing-potential transfer), zero above: E correlates with phi only
+/// through reionization, at L of a few tens. `None` when the table has no E.
+pub fn e_phi_los(
+    weyl: &WeylSource,
+    table: &TransferTable,
+    prim: &Primordial,
+    lmax: usize,
+) -> Option<Vec<f64>> {
+    let fe = table.field_index(Field::E)?;
+    let l_top = lmax.min(L_LOS).min(table.lmax());
+    let n = l_top + 1;
+    let nk = table.k().partition_point(|&k| k <= EP_K_MAX);
+    let d = weyl.phi_transfer(&table.k()[..nk], l_top);
+    let mut c = vec![0.0; lmax + 1];
+    for (ik, (&k, &w)) in table.k()[..nk].iter().zip(table.weights()).enumerate() {
+        let a = 2.0 / std::f64::consts::PI * w * k * k * prim.p_phi(k);
+        let e = table.row(fe, ik);
+        for (l, cl) in c.iter_mut().enumerate().take(n).skip(2) {
+            *cl += a * e[l] * d[ik * n + l];
+        }
+    }
+    Some(c)
+}
+
+/// The ISW-lensing bispectrum of a run, with the spectra of its covariance:
+/// - `lensing = Some(l)` (lensed covariance): the lensed C^XY of `l` (lensed by the
+///   residual (1 - F) C^{phi phi} of the delensing F) and (1 - F) C^{X phi} (a
+///   Wiener-filtered phi estimate that removes the fraction F of the phi power leaves
+///   C^{X phi_res} = (1 - F) C^{X phi});
+/// - `None` (unlensed covariance): the table's unlensed C^XY, C^{T phi} from a
+///   Weyl-potential solve of its own.
+///
+/// C^{E phi} by [`e_phi_los`] in both cases (the lensed case reuses the lensing
+/// potential of `lensing`: nothing is solved twice).
+///
+/// # Errors
+/// As [`WeylSource::new`].
+#[allow(clippy::too_many_arguments)] // the cosmology's pieces and the run's choices
+pub fn isw_lensing_for(
+    cosmo: &Cosmology,
+    th: &ThermalHistory,
+    bg: &Background,
+    table: &TransferTable,
+    lensing: Option<&Lensing>,
+    lmax: usize,
+    parallel: bool,
+) -> Result<IswLensingBispectrum> {
+    let prim = Primordial::new(cosmo);
+    let mut b = match lensing {
+        Some(l) => {
+            let mut b = IswLensingBispectrum::new(
+                &l.lensed.tt,
+                &l.lensed.te,
+                &l.lensed.ee,
+                &l.potential.tp,
+                l.e_phi.as_deref(),
+            );
+            b.scale_phi(1.0 - l.delensing);
+            b
+        }
+        None => {
+            let weyl = WeylSource::new(cosmo, th, bg, 1, parallel)?;
+            let ep = e_phi_los(&weyl, table, &prim, lmax);
+            let s = Spectra::from_table(table, &prim);
+            let tp = weyl.spectra(table, lmax.min(table.lmax())).tp;
+            IswLensingBispectrum::new(&s.tt, &s.te, &s.ee, &tp, ep.as_deref())
+        }
+    };
+    b.lmax = b.lmax.min(lmax);
+    Ok(b)
 }
 
 #[cfg(test)]

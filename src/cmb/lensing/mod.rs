@@ -60,6 +60,9 @@ pub struct Lensing {
     pub lensed: LensedSpectra,
     /// Fraction of the lensing-potential power removed before lensing (0: none).
     pub delensing: f64,
+    /// C_L^{E phi} to `unlensed_lmax` (line of sight to [`L_LOS`], zero above; `None`
+    /// without E in the table), for the ISW-lensing bispectrum.
+    pub e_phi: Option<Vec<f64>>,
 }
 
 /// Lensed spectra to `lmax_out` for the cosmology of `table` (its T and E transfer
@@ -122,6 +125,7 @@ pub fn lensing_of(
     }
     let weyl = WeylSource::new(cosmo, th, bg, precision, parallel)?;
     let potential = weyl.spectra(table, lu);
+    let e_phi = isw_bispectrum::e_phi_los(&weyl, table, &Primordial::new(cosmo), lu);
     let pp: Vec<f64> = potential.pp.iter().map(|v| (1.0 - delensing) * v).collect();
     let lensed = lensed_spectra(&unlensed.tt, &unlensed.ee, &unlensed.te, &pp, lmax_out);
     Ok(Lensing {
@@ -129,5 +133,6 @@ pub fn lensing_of(
         potential,
         lensed,
         delensing,
+        e_phi,
     })
 }
