@@ -33,6 +33,8 @@ pub struct CmbResult {
     pub forecast: CmbForecast,
     /// tau_NL from the collapsed trispectrum (when the scenario lists `tau_nl`).
     pub tau: Option<CollapsedForecast>,
+    /// The ISW-lensing bias of f_NL (full transfer only: it needs our lensing potential).
+    pub lensing: Option<crate::cmb::lensing::bias::LensingBias>,
 }
 
 /// The forecast of one survey.
@@ -163,6 +165,8 @@ pub struct CmbPieces {
     pub plan: BispectrumPlan,
     /// The lensed spectra of the covariance (`cmb_spectra = "lensed"`), else `None`.
     pub lensed: Option<crate::cmb::lensing::LensedSpectra>,
+    /// The ISW-lensing bispectrum (same C^XY as the covariance; full transfer only).
+    pub isw: Option<crate::cmb::lensing::isw_bispectrum::IswLensingBispectrum>,
 }
 
 /// One cache slot: computed once, success or the error message.
@@ -274,12 +278,12 @@ fn build_cmb_pieces(
     progress("CMB transfer functions");
     settings.progress.step("CMB transfer functions", None);
     let (table, radial, mut meta) = cmb_transfer(sc, bg, lmax, &settings.cache)?;
-    let lensed = match sc.cmb_spectra {
+    let lensing = match sc.cmb_spectra {
         crate::cmb::lensing::CovarianceSpectra::Lensed => {
             progress("CMB lensing");
             settings.progress.step("CMB lensing", None);
             let th = ThermalHistory::new(c, bg)?;
-            let l = crate::cmb::lensing::lensing_of(
+            Some(crate::cmb::lensing::lensing_of(
                 c,
                 &th,
                 bg,
@@ -288,11 +292,26 @@ fn build_cmb_pieces(
                 sc.delensing,
                 1,
                 parallel,
-            )?;
-            Some(l.lensed)
+            )?)
         }
         crate::cmb::lensing::CovarianceSpectra::Unlensed => None,
     };
+    // The ISW-lensing bispectrum (for the bias of f_NL) reuses the lensing potential.
+    let isw = if sc.transfer == TransferChoice::Full && !sc.shapes.is_empty() {
+        let th = ThermalHistory::new(c, bg)?;
+        Some(crate::cmb::lensing::isw_bispectrum::isw_lensing_for(
+            c,
+            &th,
+            bg,
+            &table,
+            lensing.as_ref(),
+            lmax,
+            parallel,
+        )?)
+    } else {
+        None
+    };
+    let lensed = lensing.map(|l| l.lensed);
     if let Value::Object(m) = &mut meta {
         m.insert("cmb_spectra".into(), Value::from(sc.cmb_spectra.label()));
         m.insert("delensing".into(), Value::from(sc.delensing));
@@ -318,6 +337,7 @@ fn build_cmb_pieces(
         meta,
         plan,
         lensed,
+        isw,
     })
 }
 
@@ -374,10 +394,23 @@ pub fn run_scenario_cached(
             } else {
                 None
             };
+            let lensing = pieces.isw.as_ref().map(|isw| {
+                progress(&format!("CMB ISW-lensing bias: {}", e.name));
+                crate::cmb::lensing::bias::LensingBias::compute(
+                    &p,
+                    &pieces.radial,
+                    isw,
+                    sc.cmb_spectra.label(),
+                    sc.delensing,
+                    &sc.lmax,
+                    settings.parallel,
+                )
+            });
             cmb.push(CmbResult {
                 experiment: e.clone(),
                 forecast,
                 tau,
+                lensing,
             });
         }
     }

@@ -8,6 +8,8 @@ use crate::cmb::bispectrum::{
 use crate::cmb::boltzmann::CacheOptions;
 use crate::cmb::collapsed::{CollapsedForecast, CollapsedSettings, tau_nl_fisher};
 use crate::cmb::experiment::{Experiment, validate_lmax};
+use crate::cmb::lensing::bias::{BIAS_NOTE, LensingBias};
+use crate::cmb::lensing::isw_bispectrum::isw_lensing_for;
 use crate::cmb::lensing::{CovarianceSpectra, lensing_of};
 use crate::cmb::thermal::ThermalHistory;
 use crate::combine::{log_slopes, sigmas};
@@ -167,6 +169,21 @@ pub fn cmb_report(
             }
         }
     }
+    // The ISW-lensing bias needs the lensing potential of our Boltzmann solver.
+    let lens_bias = if opts.transfer == TransferChoice::Full && !opts.shapes.is_empty() {
+        let isw = isw_lensing_for(c, &th, &bg, &table, lensing.as_ref(), top, opts.parallel)?;
+        Some(LensingBias::compute(
+            &plan,
+            &radial,
+            &isw,
+            opts.spectra.label(),
+            opts.delensing,
+            &lmax,
+            opts.parallel,
+        ))
+    } else {
+        None
+    };
     let tau = if opts.tau_nl {
         Some(tau_nl_fisher(
             &plan,
@@ -198,6 +215,11 @@ pub fn cmb_report(
             ),
             CovarianceSpectra::Unlensed => "covariance: unlensed C_l".into(),
         },
+        BIAS_NOTE.into(),
+        match &lens_bias {
+            Some(b) => b.description(),
+            None => "lensing_bias: not computed (needs --transfer full, the lensing potential of our Boltzmann solver)".into(),
+        },
     ];
     r.inputs = json!({
         "cosmology": super::cosmology_json(c, cosmo_source),
@@ -218,6 +240,8 @@ pub fn cmb_report(
         "sigma_conditional",
         "sigma_marginal",
         "log_slope",
+        "lensing_bias",
+        "lensing_bias_marginal",
     ]
     .iter()
     .map(|s| s.to_string())
@@ -239,6 +263,7 @@ pub fn cmb_report(
             }
             let f = &fc.fisher[ifs][m];
             let (cond, marg) = sigmas(f);
+            let bias = lens_bias.as_ref().map(|b| b.bias(f, ifs, m));
             for (is, s) in opts.shapes.iter().enumerate() {
                 let info: Vec<f64> = fc.fisher[ifs].iter().map(|x| x.get(is, is)).collect();
                 let slope = log_slopes(&lm, &info)[m];
@@ -249,12 +274,17 @@ pub fn cmb_report(
                     num(cond[is]),
                     num(marg[is]),
                     num(slope),
+                    bias.as_ref().map_or(Value::Null, |b| num(b.single[is])),
+                    bias.as_ref().map_or(Value::Null, |b| num(b.joint[is])),
                 ]);
             }
             mats.push(json!({"lmax": l, "fields": fs.label(), "parameters": f.names(), "matrix": f.rows()}));
         }
     }
     r.json_extra.push(("fisher".into(), Value::Array(mats)));
+    if let Some(b) = &lens_bias {
+        r.json_extra.push(("lensing_bias".into(), b.to_json()));
+    }
     if let Some(t) = &tau {
         add_tau_rows(&mut r, t);
     }
@@ -289,6 +319,8 @@ fn add_tau_rows(r: &mut Report, t: &CollapsedForecast) {
                 num(sigma),
                 num(sigma),
                 num(slopes[m]),
+                Value::Null,
+                Value::Null,
             ]);
         }
     }

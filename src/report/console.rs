@@ -123,6 +123,7 @@ pub fn terminal_summary(r: &RunResult) -> String {
         out.push_str(&per_bin_block(r, s));
     }
     out.push_str(&crate::report::tau_outputs::terminal_lines(r));
+    out.push_str(&crate::report::lensing_outputs::terminal_lines(r));
     out
 }
 

@@ -157,7 +157,7 @@ fn caveats(r: &RunResult, summary: &Value) -> Vec<String> {
     let sc = &r.scenario;
     let mut v = Vec::new();
     if !r.cmb.is_empty() {
-        v.push("CMB: unlensed spectra in the covariance, no lensing-ISW bias; foregrounds and masks enter only through f_sky.".into());
+        v.push(format!("CMB: {} spectra in the covariance; the ISW-lensing bias of f_NL (lensing_bias) is reported beside sigma, not subtracted; foregrounds and masks enter only through f_sky.", sc.cmb_spectra.label()));
         v.push("Each CMB field stops at the experiment's own l_max: grid values above it repeat the capped result.".into());
     }
     if !r.surveys.is_empty() {

@@ -111,6 +111,7 @@ pub fn latex_table(r: &RunResult) -> String {
         }
         t.push_str("\\bottomrule\n\\end{tabular}\n\\end{table}\n\n");
     }
+    t.push_str(&crate::report::lensing_outputs::latex_table(r));
     t
 }
 

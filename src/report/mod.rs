@@ -19,6 +19,7 @@ pub mod console;
 pub mod figures;
 pub mod html;
 pub mod latex;
+pub mod lensing_outputs;
 pub mod matrices;
 pub mod outputs;
 pub mod table;

@@ -91,9 +91,12 @@ pub fn summary_json(r: &RunResult) -> Value {
                 let slopes = log_slopes(&lm, &info);
                 for (m, f) in mats.iter().enumerate() {
                     let (cond, marg) = sigmas(f);
+                    let bias = c.lensing.as_ref().map(|b| b.bias(f, ifs, m));
                     cmb_rows.push(json!({
                         "experiment": c.experiment.name, "lmax": c.forecast.lmax[m], "fields": fs.label(), "shape": shape,
                         "sigma_conditional": num(cond[is]), "sigma_marginal": num(marg[is]), "log_slope": num(slopes[m]),
+                        "lensing_bias": bias.as_ref().map_or(Value::Null, |b| num(b.single[is])),
+                        "lensing_bias_marginal": bias.as_ref().map_or(Value::Null, |b| num(b.joint[is])),
                     }));
                 }
             }
@@ -198,7 +201,8 @@ pub fn summary_json(r: &RunResult) -> Value {
             "joint = CMB + survey Fisher matrices (independent probes); improvement = best single-probe sigma / joint sigma",
             "rows and joint: sigma_cmb, sigma_survey, sigma_joint are single-shape constraints (other f_NL fixed, nuisances marginalized), improvement between them; *_marginal (and improvement_marginal) are marginalized over the other shapes; joint sigma_conditional / sigma_marginal repeat sigma_joint / sigma_joint_marginal",
             "survey covariance per survey in inputs.surveys[].covariance and rows[].covariance (realistic: Gaussian + theoretical error + leading P-B cross-covariance; gaussian: P and B independent Gaussian)",
-            "kmax_h_mpc: see inputs.surveys[].kmax_meaning (k_max(z = 0) for growth-rule surveys); each bin's k_max in per_bin[].kmax_used_h_mpc"
+            "kmax_h_mpc: see inputs.surveys[].kmax_meaning (k_max(z = 0) for growth-rule surveys); each bin's k_max in per_bin[].kmax_used_h_mpc",
+            crate::cmb::lensing::bias::BIAS_NOTE
         ],
         "inputs": inputs_json(r),
         "rows": rows,
@@ -210,6 +214,8 @@ pub fn summary_json(r: &RunResult) -> Value {
         "fisher": {"cmb": cmb_fisher, "survey": survey_fisher},
         "information": information_json(r),
         "tau_nl": crate::report::tau_outputs::summary_block(r),
+        "cmb_lensing_bias": r.cmb.iter().map(|c| json!({"experiment": c.experiment.name,
+            "terms": c.lensing.as_ref().map_or(Value::Null, |b| b.to_json())})).collect::<Vec<_>>(),
     })
 }
 
@@ -344,7 +350,8 @@ pub fn write_outputs_with(r: &RunResult, dir: &Path, opts: &OutputOptions) -> Re
         Ok(())
     };
     let prov = provenance(r);
-    let artifacts: Vec<Artifact> = crate::report::artifacts::all(r);
+    let mut artifacts: Vec<Artifact> = crate::report::artifacts::all(r);
+    artifacts.extend(crate::report::lensing_outputs::bias_tables(r));
     let mut svgs: Vec<(String, String)> = Vec::new();
     for a in &artifacts {
         let t = &a.table;

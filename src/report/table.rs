@@ -157,13 +157,33 @@ pub struct Column {
 }
 
 impl Column {
-    /// A column whose unit is read from its name's suffix (see [`unit_of`]).
+    /// A column whose unit is read from its name's suffix (see [`unit_of`]); an empty
+    /// description is filled from [`default_description`] for the columns it knows.
     pub fn new(name: &str, description: &str) -> Self {
+        let description = if description.is_empty() {
+            default_description(name).unwrap_or_default()
+        } else {
+            description
+        };
         Self {
             name: identifier(name),
             unit: unit_of(name).map(str::to_string),
             description: description.to_string(),
         }
+    }
+}
+
+/// The description of a column that some reports carry without one of their own (the
+/// ISW-lensing bias columns of `ngreach cmb`).
+pub fn default_description(name: &str) -> Option<&'static str> {
+    match name {
+        "lensing_bias" => Some(
+            "Delta f_NL from the ISW-lensing bispectrum (f_NL units, CMB convention; positive mimics a positive f_NL), single-shape: F_ss^-1 F_s,lens",
+        ),
+        "lensing_bias_marginal" => Some(
+            "Delta f_NL from the ISW-lensing bispectrum (f_NL units, CMB convention), joint over the shapes of the run: (F^-1 F_lens)_s",
+        ),
+        _ => None,
     }
 }
 

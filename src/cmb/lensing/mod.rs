@@ -1,7 +1,10 @@
 //! Gravitational lensing of the CMB: the lensing potential from our own Boltzmann
 //! solver ([`potential`]) and the lensed spectra ([`lensed_cl`]), put together by
-//! [`lensing_of`] for a transfer table of the unlensed CMB.
+//! [`lensing_of`] for a transfer table of the unlensed CMB; the ISW-lensing bispectrum
+//! ([`isw_bispectrum`]) and the bias it induces on f_NL ([`bias`]).
 
+pub mod bias;
+pub mod isw_bispectrum;
 pub mod lensed_cl;
 pub mod potential;
 
@@ -57,6 +60,9 @@ pub struct Lensing {
     pub lensed: LensedSpectra,
     /// Fraction of the lensing-potential power removed before lensing (0: none).
     pub delensing: f64,
+    /// C_L^{E phi} to `unlensed_lmax` (line of sight to [`L_LOS`], zero above; `None`
+    /// without E in the table), for the ISW-lensing bispectrum.
+    pub e_phi: Option<Vec<f64>>,
 }
 
 /// Lensed spectra to `lmax_out` for the cosmology of `table` (its T and E transfer
@@ -119,6 +125,7 @@ pub fn lensing_of(
     }
     let weyl = WeylSource::new(cosmo, th, bg, precision, parallel)?;
     let potential = weyl.spectra(table, lu);
+    let e_phi = isw_bispectrum::e_phi_los(&weyl, table, &Primordial::new(cosmo), lu);
     let pp: Vec<f64> = potential.pp.iter().map(|v| (1.0 - delensing) * v).collect();
     let lensed = lensed_spectra(&unlensed.tt, &unlensed.ee, &unlensed.te, &pp, lmax_out);
     Ok(Lensing {
@@ -126,5 +133,6 @@ pub fn lensing_of(
         potential,
         lensed,
         delensing,
+        e_phi,
     })
 }
