@@ -14,81 +14,7 @@ use crate::report::figures::{Figure, LinePlot, Series};
 use crate::report::format_sig;
 use crate::report::outputs::slug;
 use crate::report::table::{Column, Table};
-
-/// A triangle configuration class.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
-#[serde(rename_all = "lowercase")]
-pub enum TriangleClass {
-    /// One side much shorter than the other two.
-    Squeezed,
-    /// Three nearly equal sides.
-    Equilateral,
-    /// The two shorter sides nearly add up to the longest.
-    Flattened,
-}
-
-impl TriangleClass {
-    /// The class of a triangle with sides (a, b, c) in any order and unit (wavenumbers or
-    /// multipoles): the corner of the (k1/k3, k2/k3) plane nearest to the triangle.
-    pub fn of(a: f64, b: f64, c: f64) -> TriangleClass {
-        let mut s = [a, b, c];
-        s.sort_by(f64::total_cmp);
-        let (x, y) = (s[0] / s[2], s[1] / s[2]);
-        let d = |cx: f64, cy: f64| (x - cx).powi(2) + (y - cy).powi(2);
-        let (sq, eq, fl) = (d(0.0, 1.0), d(1.0, 1.0), d(0.5, 0.5));
-        if sq <= eq && sq <= fl {
-            TriangleClass::Squeezed
-        } else if eq <= fl {
-            TriangleClass::Equilateral
-        } else {
-            TriangleClass::Flattened
-        }
-    }
-
-    /// Lower-case name.
-    pub fn name(self) -> &'static str {
-        match self {
-            TriangleClass::Squeezed => "squeezed",
-            TriangleClass::Equilateral => "equilateral",
-            TriangleClass::Flattened => "flattened",
-        }
-    }
-}
-
-/// Shares of the information by triangle class.
-#[derive(Debug, Clone, Copy, PartialEq, Default, serde::Serialize)]
-pub struct ClassBudget {
-    /// Share from squeezed triangles.
-    pub squeezed: f64,
-    /// Share from equilateral triangles.
-    pub equilateral: f64,
-    /// Share from flattened triangles.
-    pub flattened: f64,
-    /// The total information summed.
-    pub total: f64,
-}
-
-/// The share of the information by triangle class from per-triangle contributions
-/// ((side lengths), Fisher information of that triangle).
-pub fn triangle_class_budget(
-    contributions: impl IntoIterator<Item = ([f64; 3], f64)>,
-) -> ClassBudget {
-    let mut b = ClassBudget::default();
-    for ([a, bb, c], f) in contributions {
-        match TriangleClass::of(a, bb, c) {
-            TriangleClass::Squeezed => b.squeezed += f,
-            TriangleClass::Equilateral => b.equilateral += f,
-            TriangleClass::Flattened => b.flattened += f,
-        }
-        b.total += f;
-    }
-    if b.total > 0.0 {
-        b.squeezed /= b.total;
-        b.equilateral /= b.total;
-        b.flattened /= b.total;
-    }
-    b
-}
+pub use crate::triangle_class::{ClassBudget, TriangleClass, triangle_class_budget};
 
 /// The budget tables and figures of a run.
 pub fn budgets(r: &RunResult) -> Vec<Artifact> {
@@ -300,24 +226,4 @@ fn cumulative_artifact(t: Table, name: &str, x_label: String, series: Vec<Series
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    #[test]
-    fn triangle_classes_by_nearest_corner() {
-        assert_eq!(TriangleClass::of(1.0, 1.0, 1.0), TriangleClass::Equilateral);
-        assert_eq!(TriangleClass::of(0.05, 1.0, 1.0), TriangleClass::Squeezed);
-        assert_eq!(TriangleClass::of(1.0, 0.5, 0.5), TriangleClass::Flattened);
-        assert_eq!(TriangleClass::of(2.0, 1.9, 0.2), TriangleClass::Squeezed);
-    }
-
-    #[test]
-    fn class_budget_shares_sum_to_one() {
-        let b = triangle_class_budget([
-            ([1.0, 1.0, 1.0], 2.0),
-            ([0.1, 1.0, 1.0], 1.0),
-            ([0.5, 0.5, 1.0], 1.0),
-        ]);
-        assert!((b.equilateral - 0.5).abs() < 1e-15);
-        assert!((b.squeezed - 0.25).abs() < 1e-15 && (b.flattened - 0.25).abs() < 1e-15);
-        assert_eq!(b.total, 4.0);
-    }
 }
