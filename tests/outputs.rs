@@ -284,3 +284,33 @@ fn run_help_lists_every_format() {
     let o = run(&["run", "--format", "csv"]);
     assert_eq!(o.status.code(), Some(2), "run accepted a format it ignores");
 }
+
+/// Every figure of a run with two experiments and two surveys (three probes each, the
+/// layout where a survey line once took a CMB band's colour) keeps its items apart: no
+/// two series of one figure share colour and dash, no band takes a series' colour.
+#[test]
+fn every_series_of_a_figure_is_distinguishable() {
+    let root = env!("CARGO_MANIFEST_DIR");
+    let dir = tmp("styles");
+    let path = dir.join("scenario.toml");
+    std::fs::write(
+        &path,
+        format!(
+            "[scenario]\nname = \"styles\"\nshapes = [\"local\", \"equilateral\"]\nlmax = [60, 120]\nkmax_h_mpc = [0.03, 0.05]\nfields = [\"T\", \"E\", \"T+E\"]\nprobes = [\"P\", \"B\", \"P+B\"]\ntransfer = \"shell\"\n[[cmb]]\nfile = \"{root}/surveys/cmb_satellite.toml\"\n[[cmb]]\nfile = \"{root}/surveys/cmb_ground.toml\"\n[[survey]]\nfile = \"{root}/tests/data/survey_small.toml\"\n[[survey]]\nfile = \"{root}/tests/data/survey_small.toml\"\nset = {{ name = \"Second Small\" }}\n"
+        ),
+    )
+    .unwrap();
+    let sc = ngreach::scenario::load_scenario(&path).unwrap();
+    let r = ngreach::pipeline::run_scenario(&sc, &Default::default(), &mut |_| {}).unwrap();
+    let arts = ngreach::report::artifacts::all(&r);
+    let mut n = 0;
+    for a in &arts {
+        if let Some(f) = &a.figure {
+            n += 1;
+            let c = ngreach::report::figures::style_clashes(f);
+            assert!(c.is_empty(), "{}: {c:?}", a.table.stem);
+        }
+    }
+    assert!(n >= 8, "only {n} figures");
+    let _ = std::fs::remove_dir_all(&dir);
+}

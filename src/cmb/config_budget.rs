@@ -20,9 +20,10 @@
 
 use rayon::prelude::*;
 
-use crate::cmb::bispectrum::BispectrumPlan;
+use crate::cmb::bispectrum::{BispectrumPlan, FieldSet};
 use crate::cmb::transfer::{Field, RadialGrid};
 use crate::special::wigner::Wigner000;
+use crate::triangle_class::{ClassBudget, PlaneDensity, triangle_class_budget};
 
 /// A multipole grid for the triplet sum: consecutive cells of multipoles.
 #[derive(Debug, Clone, PartialEq)]
@@ -99,10 +100,9 @@ pub fn geometric_weights(grid: &LGrid, lmax: usize, parallel: bool) -> Vec<[f64;
     let top = lmax.min(grid.edges.last().map_or(0, |&e| e.saturating_sub(1)));
     let mut cell_of = vec![usize::MAX; top + 1];
     for c in 0..n {
-        for l in grid.edges[c]..grid.edges[c + 1] {
-            if l <= top {
-                cell_of[l] = c;
-            }
+        let hi = grid.edges[c + 1].min(top + 1);
+        if grid.edges[c] < hi {
+            cell_of[grid.edges[c]..hi].fill(c);
         }
     }
     let w3j = Wigner000::new(top as u32);
@@ -347,6 +347,101 @@ pub fn cell_information(cb: &CellBispectra, plan: &BispectrumPlan, fs: usize) ->
         out.push(TripletInfo { l, info });
     }
     out
+}
+
+/// The largest l_max of the configuration budget in outputs: the sum over cell triples
+/// grows as the cube of the number of cells, and the exact geometric weights as l_max^3.
+pub const BUDGET_LMAX: usize = 2000;
+/// Cells of one multipole below this l in outputs.
+pub const BUDGET_L_FINE: usize = 30;
+/// Widest cell in outputs.
+pub const BUDGET_MAX_WIDTH: usize = 40;
+
+/// The l_max of the budget for an l_max grid: the largest grid value at or below
+/// [`BUDGET_LMAX`], else the smallest; with its index in the grid.
+pub fn budget_lmax(grid: &[usize]) -> Option<(usize, usize)> {
+    let below = grid
+        .iter()
+        .enumerate()
+        .filter(|(_, l)| **l <= BUDGET_LMAX)
+        .max_by_key(|(_, l)| **l);
+    below
+        .or_else(|| grid.iter().enumerate().min_by_key(|(_, l)| **l))
+        .map(|(i, &l)| (l, i))
+}
+
+/// The output grid for experiments with these (l_min, l_max T, l_max E): cells end at
+/// every experiment's own limits.
+pub fn budget_grid(lmax: usize, limits: &[(usize, usize, usize)]) -> LGrid {
+    let mut ends: Vec<usize> = Vec::new();
+    for &(lmin, lt, le) in limits {
+        ends.extend([lmin.saturating_sub(1), lt, le]);
+    }
+    LGrid::binned(2, lmax, BUDGET_L_FINE, BUDGET_MAX_WIDTH, &ends)
+}
+
+/// One row of a configuration budget: a field set and shape.
+#[derive(Debug, Clone, serde::Serialize)]
+pub struct ConfigBudgetRow {
+    /// Field set.
+    pub field_set: FieldSet,
+    /// Shape name.
+    pub shape: String,
+    /// Shares of F_ii by class (and their total, the budget's F_ii).
+    pub classes: ClassBudget,
+    /// The engine's F_ii at the same l_max (for the check of the cell sum).
+    pub engine_information: f64,
+    /// Shares on the (l1/l3, l2/l3) plane.
+    pub plane: PlaneDensity,
+}
+
+/// The configuration budget of one experiment.
+#[derive(Debug, Clone, serde::Serialize)]
+pub struct ConfigBudget {
+    /// l_max of the sum.
+    pub lmax: usize,
+    /// Cells of the multipole grid.
+    pub cells: usize,
+    /// Widest cell (multipoles).
+    pub max_cell_width: usize,
+    /// Per field set and shape.
+    pub rows: Vec<ConfigBudgetRow>,
+}
+
+/// The budget of the experiment whose inverse covariances `plan` carries, from the shared
+/// cell bispectra, with the engine's F_ii at the budget's l_max (`engine[fs][shape]`).
+pub fn config_budget(
+    plan: &BispectrumPlan,
+    cb: &CellBispectra,
+    grid: &LGrid,
+    lmax: usize,
+    shapes: &[String],
+    engine: &[Vec<f64>],
+) -> ConfigBudget {
+    let mut rows = Vec::new();
+    for (ifs, &fs) in plan.field_sets().iter().enumerate() {
+        let info = cell_information(cb, plan, ifs);
+        for (s, name) in shapes.iter().enumerate() {
+            let contrib = || info.iter().map(move |t| (t.l.map(|x| x as f64), t.info[s]));
+            rows.push(ConfigBudgetRow {
+                field_set: fs,
+                shape: name.clone(),
+                classes: triangle_class_budget(contrib()),
+                engine_information: engine
+                    .get(ifs)
+                    .and_then(|v| v.get(s))
+                    .copied()
+                    .unwrap_or(f64::NAN),
+                plane: PlaneDensity::of(contrib()),
+            });
+        }
+    }
+    ConfigBudget {
+        lmax,
+        cells: grid.len(),
+        max_cell_width: (0..grid.len()).map(|c| grid.width(c)).max().unwrap_or(0),
+        rows,
+    }
 }
 
 #[cfg(test)]

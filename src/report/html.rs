@@ -16,7 +16,6 @@ use html_escape::{encode_double_quoted_attribute as attr, encode_text as esc};
 use serde_json::Value;
 
 use crate::pipeline::RunResult;
-use crate::report::artifacts::Artifact;
 use crate::report::format_sig;
 use crate::report::table::TableFormat;
 
@@ -202,8 +201,7 @@ VI 2020).";
 pub fn run_page(
     r: &RunResult,
     summary: &Value,
-    artifacts: &[Artifact],
-    svgs: &[(String, String)],
+    svgs: &[(String, String, String)],
     tables: TableFormat,
 ) -> String {
     let sc = &r.scenario;
@@ -219,11 +217,7 @@ pub fn run_page(
     s.push_str("<h2 id=\"crossover\">Crossover</h2>\n<p class=\"note\">The k_max at which the survey's marginalized sigma falls below the CMB's (T+E at the experiment's l_max); null: not reached on the grid; below_grid: already below at the first grid point (a bound, not a found point).</p>\n");
     s.push_str(&json_table(array(summary, "crossover"), &[]));
     s.push_str("<h2 id=\"figures\">Figures</h2>\n");
-    for (stem, svg) in svgs {
-        let desc = artifacts
-            .iter()
-            .find(|a| &a.table.stem == stem)
-            .map_or("", |a| a.table.description.as_str());
+    for (stem, svg, desc) in svgs {
         let file = format!("{stem}.{}", tables.extension());
         s.push_str(&format!(
             "<figure id=\"{}\">\n{}\n<figcaption><b>{}</b>: {} (numbers: <a href=\"{}\">{}</a>; <a href=\"{}\">PNG</a>)</figcaption>\n</figure>\n",

@@ -19,7 +19,7 @@ use crate::survey::layout::Layout;
 use crate::survey::response::{ShapeInput, SigmaTable, TracerResponse};
 use crate::survey::spec::Survey;
 use crate::survey::triangles::{TriPoint, TriRow, triangle_rows};
-use crate::triangle_class::{PLANE_CELLS, TriangleClass, plane_point};
+use crate::triangle_class::{ClassBudget, PLANE_CELLS, PlaneDensity, TriangleClass, plane_point};
 
 /// The information of one group of triangles, summed over redshift bins.
 #[derive(Debug, Clone, PartialEq)]
@@ -149,6 +149,64 @@ pub fn triangle_information(
             info,
         })
         .collect()
+}
+
+/// The triangle-class budget of one survey.
+#[derive(Debug, Clone, serde::Serialize)]
+pub struct TriangleBudget {
+    /// The k_max of the budget (the survey's largest), h/Mpc (the survey's k_max rule
+    /// applies per bin).
+    pub kmax_h_mpc: f64,
+    /// Shape names.
+    pub shapes: Vec<String>,
+    /// Per shape: shares of the Gaussian, unmarginalized bispectrum F_ii by class.
+    pub classes: Vec<ClassBudget>,
+    /// Per shape: shares on the (k1/k3, k2/k3) plane.
+    pub plane: Vec<PlaneDensity>,
+}
+
+/// [`triangle_information`] summarized by class and plane cell.
+pub fn triangle_budget(
+    survey: &Survey,
+    power: &LinearPower,
+    bg: &Background,
+    shapes: &[ShapeInput],
+    kmax_mpc: f64,
+    st: &SurveySettings,
+) -> TriangleBudget {
+    let groups = triangle_information(survey, power, bg, shapes, kmax_mpc, st);
+    let h = bg.cosmology().h();
+    let n = PLANE_CELLS;
+    let mut classes = Vec::new();
+    let mut plane = Vec::new();
+    for s in 0..shapes.len() {
+        let mut b = ClassBudget::default();
+        let mut share = vec![0.0; n * n];
+        for g in &groups {
+            let f = g.info[s];
+            match g.class {
+                TriangleClass::Squeezed => b.squeezed += f,
+                TriangleClass::Equilateral => b.equilateral += f,
+                TriangleClass::Flattened => b.flattened += f,
+            }
+            b.total += f;
+            share[g.cell] += f;
+        }
+        if b.total > 0.0 {
+            b.squeezed /= b.total;
+            b.equilateral /= b.total;
+            b.flattened /= b.total;
+            share.iter_mut().for_each(|v| *v /= b.total);
+        }
+        classes.push(b);
+        plane.push(PlaneDensity { share });
+    }
+    TriangleBudget {
+        kmax_h_mpc: kmax_mpc / h,
+        shapes: shapes.iter().map(|s| s.name.clone()).collect(),
+        classes,
+        plane,
+    }
 }
 
 #[cfg(test)]
