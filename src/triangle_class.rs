@@ -83,34 +83,48 @@ pub fn triangle_class_budget(
     b
 }
 
-/// Sides per axis of the plane histogram ([`PlaneDensity`]).
+/// Cells per axis of the plane histogram ([`PlaneDensity`]) for a sum over every
+/// triplet (CMB multipole cells).
 pub const PLANE_CELLS: usize = 20;
 
-/// Information on the triangle plane: a [`PLANE_CELLS`]^2 histogram over x in [0, 1]
-/// (s1/s3) and y in [1/2, 1] (s2/s3) of the share of the total information per cell.
+/// Cells per axis for a sum over quadrature nodes (the survey's triangle rule): coarser,
+/// so that every cell of the region holds nodes.
+pub const PLANE_CELLS_COARSE: usize = 10;
+
+/// Information on the triangle plane: a cells x cells histogram over x in [0, 1] (s1/s3)
+/// and y in [1/2, 1] (s2/s3) of the share of the total information per cell.
 #[derive(Debug, Clone, PartialEq, serde::Serialize)]
 pub struct PlaneDensity {
-    /// share[iy * PLANE_CELLS + ix]; the shares add up to one.
+    /// Cells per axis.
+    pub cells: usize,
+    /// share[iy * cells + ix]; the shares add up to one.
     pub share: Vec<f64>,
 }
 
+/// The cell (iy * cells + ix) of a triangle with sides in any order.
+pub fn plane_cell(k: [f64; 3], cells: usize) -> usize {
+    let n = cells.max(1);
+    let (x, y) = plane_point(k);
+    let ix = ((x * n as f64) as usize).min(n - 1);
+    let iy = (((y - 0.5) * 2.0 * n as f64).max(0.0) as usize).min(n - 1);
+    iy * n + ix
+}
+
 impl PlaneDensity {
-    /// The histogram of per-triangle contributions ((sides), information).
+    /// The histogram of per-triangle contributions ((sides), information) on
+    /// [`PLANE_CELLS`] cells per axis.
     pub fn of(contributions: impl IntoIterator<Item = ([f64; 3], f64)>) -> Self {
         let n = PLANE_CELLS;
         let mut share = vec![0.0; n * n];
         let mut tot = 0.0;
         for (k, f) in contributions {
-            let (x, y) = plane_point(k);
-            let ix = ((x * n as f64) as usize).min(n - 1);
-            let iy = (((y - 0.5) * 2.0 * n as f64).max(0.0) as usize).min(n - 1);
-            share[iy * n + ix] += f;
+            share[plane_cell(k, n)] += f;
             tot += f;
         }
         if tot > 0.0 {
             share.iter_mut().for_each(|v| *v /= tot);
         }
-        Self { share }
+        Self { cells: n, share }
     }
 }
 

@@ -29,7 +29,7 @@ pub fn budgets(r: &RunResult) -> Vec<Artifact> {
 }
 
 /// The class boundaries in words, for table descriptions and captions.
-pub const CLASS_RULE: &str = "classes are the nearest corner of the plane (x, y) = (s1/s3, s2/s3), s1 <= s2 <= s3: squeezed (0, 1) where x <= 1/2 and y >= x + 1/2, equilateral (1, 1) where x > 1/2 and x + y > 3/2, flattened (1/2, 1/2) otherwise";
+pub const CLASS_RULE: &str = "classes are the nearest corner of the plane (x, y) = (s1/s3, s2/s3), s1 <= s2 <= s3: squeezed (0, 1) where x <= 1/2 and y >= x + 1/2, equilateral (1, 1) where x > 1/2 and x + y > 3/2, flattened (1/2, 1/2) otherwise (sq, eq, fl in the figures; dashed lines: the class boundaries)";
 
 fn class_columns() -> Vec<Column> {
     vec![
@@ -46,6 +46,10 @@ fn class_columns() -> Vec<Column> {
             "share of the information in flattened configurations",
         ),
     ]
+}
+
+fn plane_cells(planes: &[&PlaneDensity]) -> usize {
+    planes.first().map_or(PLANE_CELLS, |p| p.cells)
 }
 
 fn plane_panels(shapes: &[String], planes: &[&PlaneDensity]) -> Vec<(String, Vec<f64>)> {
@@ -98,14 +102,14 @@ pub fn information_by_class(r: &RunResult) -> Vec<Artifact> {
             table: t,
             figure: Some(Figure::Triangles(TrianglePlot {
                 title: format!(
-                    "{}: bispectrum information per triangle, {kname} = {k} h/Mpc (Gaussian covariance, nuisances fixed)",
+                    "{}: B information per triangle, {kname} = {k} h/Mpc",
                     s.survey.name
                 ),
                 x_label: "k₁/k₃ (k₁ ≤ k₂ ≤ k₃)".into(),
                 y_label: "k₂/k₃".into(),
-                cells: PLANE_CELLS,
+                cells: plane_cells(&planes),
                 panels: plane_panels(&b.shapes, &planes),
-                value_label: "share of F_ii per cell".into(),
+                value_label: "share of F_ii per cell (Gaussian cov., nuisances fixed)".into(),
             })),
         });
     }
@@ -182,7 +186,7 @@ pub fn information_by_configuration(r: &RunResult) -> Vec<Artifact> {
                 ),
                 x_label: "ℓ₁/ℓ₃ (ℓ₁ ≤ ℓ₂ ≤ ℓ₃)".into(),
                 y_label: "ℓ₂/ℓ₃".into(),
-                cells: PLANE_CELLS,
+                cells: plane_cells(&planes),
                 panels: plane_panels(&shapes, &planes),
                 value_label: "share of F_ii per cell".into(),
             })),

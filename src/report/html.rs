@@ -24,7 +24,8 @@ const STYLE: &str = r#"
 body { font-family: ngreach-sans, "DejaVu Sans", Verdana, sans-serif; max-width: 1180px;
   margin: 1.5em auto; padding: 0 1em; color: #1a1a1a; line-height: 1.45; }
 h1 { font-size: 1.6em; margin-bottom: 0.2em; } h2 { margin-top: 1.8em; border-bottom: 1px solid #ccc; }
-table { border-collapse: collapse; margin: 0.6em 0 1.2em; font-size: 0.9em; }
+table { border-collapse: collapse; margin: 0.6em 0 1.2em; font-size: 0.9em; display: block;
+  overflow-x: auto; max-width: 100%; }
 th, td { padding: 0.2em 0.7em; text-align: right; border-bottom: 1px solid #e2e2e2; }
 th { border-bottom: 2px solid #888; background: #f5f5f5; }
 td.t, th.t { text-align: left; }
@@ -156,12 +157,38 @@ fn caveats(r: &RunResult, summary: &Value) -> Vec<String> {
     let sc = &r.scenario;
     let mut v = Vec::new();
     if !r.cmb.is_empty() {
-        v.push("CMB: unlensed spectra in the covariance, no lensing-ISW bias; foregrounds and masks enter only through f_sky.".into());
+        let spectra = match sc.cmb_spectra {
+            crate::cmb::lensing::CovarianceSpectra::Lensed if sc.delensing > 0.0 => format!(
+                "lensed spectra in the covariance with {}% of the lensing-potential power removed",
+                crate::report::format_sig(100.0 * sc.delensing, 3)
+            ),
+            crate::cmb::lensing::CovarianceSpectra::Lensed => {
+                "lensed spectra in the covariance".to_string()
+            }
+            crate::cmb::lensing::CovarianceSpectra::Unlensed => {
+                "unlensed spectra in the covariance (optimistic at high l)".to_string()
+            }
+        };
+        v.push(format!("CMB: {spectra}; Gaussian bispectrum covariance; foregrounds and masks enter only through f_sky."));
         v.push("Each CMB field stops at the experiment's own l_max: grid values above it repeat the capped result.".into());
+        v.push(format!(
+            "CMB information by configuration: summed over cells of multipoles at l_max = {} (at most {}); the table's cell_sum_over_engine column gives its agreement with the Fisher engine.",
+            r.cmb
+                .iter()
+                .find_map(|c| c.config_budget.as_ref().map(|b| b.lmax))
+                .unwrap_or(0),
+            crate::cmb::config_budget::BUDGET_LMAX
+        ));
+    }
+    for s in &r.surveys {
+        v.push(format!(
+            "{}: tree-level bispectrum; {}; the bispectrum uses the first tracer of each bin.",
+            s.survey.name,
+            s.survey.covariance.describe()
+        ));
     }
     if !r.surveys.is_empty() {
-        v.push("Survey: tree-level bispectrum with a Gaussian covariance; second-order non-Gaussian bias terms neglected; the bispectrum uses the first tracer of each bin.".into());
-        v.push("Power spectrum and bispectrum are combined without their cross-covariance (Gaussian level).".into());
+        v.push("Survey information by triangle class: from the Gaussian covariance with the nuisances fixed (with the realistic covariance and marginalized nuisances the information does not split by triangle).".into());
     }
     if r.surveys.iter().any(|s| s.survey.real_space) {
         v.push("At least one survey is in real space (no redshift-space distortions).".into());
@@ -193,8 +220,11 @@ Zaldarriaga 2006), from line-of-sight transfer functions; instrumental noise fol
 galaxy survey we combine the power spectrum, through the scale-dependent bias of Dalal et al. (2008) and \
 Slosar et al. (2008), with the tree-level galaxy bispectrum in redshift space with Gaussian covariance \
 (Scoccimarro, Sefusatti & Zaldarriaga 2004; Sefusatti et al. 2006), per redshift bin, marginalizing the \
-bias and shot-noise nuisances per bin; the power-spectrum Fisher information follows Tegmark (1997). The \
-CMB and survey Fisher matrices add. The fiducial cosmology is Planck 2018 base LCDM (Planck Collaboration \
+bias and shot-noise nuisances per bin; the power-spectrum Fisher information follows Tegmark (1997). With \
+the realistic covariance model we add a theoretical-error envelope for the tree-level models (Baldauf et \
+al. 2016) and the leading power spectrum-bispectrum cross-covariance. The CMB and survey Fisher matrices \
+add. We split the bispectrum information by triangle configuration (squeezed, equilateral, flattened: the \
+nearest corner of the plane of side ratios) per multipole or wavenumber triplet. The fiducial cosmology is Planck 2018 base LCDM (Planck Collaboration \
 VI 2020).";
 
 /// The run's page.
@@ -212,7 +242,7 @@ pub fn run_page(
         esc(crate::VERSION)
     ));
     s.push_str("<nav><a href=\"#headline\">Headline</a><a href=\"#crossover\">Crossover</a><a href=\"#figures\">Figures</a><a href=\"#bins\">Per bin</a><a href=\"#information\">Information</a><a href=\"#inputs\">Inputs</a><a href=\"#methods\">Methods</a></nav>\n");
-    s.push_str("<h2 id=\"headline\">Headline</h2>\n<p class=\"note\">Marginalized over the other shapes; CMB (T+E) at the largest l_max, surveys at the largest k_max; joint = CMB + survey Fisher matrices; improvement = best single probe / joint.</p>\n");
+    s.push_str("<h2 id=\"headline\">Headline</h2>\n<p class=\"note\">sigma_cmb, sigma_survey, sigma_joint: single-shape (the other f_NL fixed, nuisances marginalized); the *_marginal columns: marginalized over the other shapes. CMB (T+E) at the largest l_max, surveys at the largest k_max; joint = CMB + survey Fisher matrices; improvement = best single probe / joint.</p>\n");
     s.push_str(&json_table(array(summary, "rows"), &[]));
     s.push_str("<h2 id=\"crossover\">Crossover</h2>\n<p class=\"note\">The k_max at which the survey's marginalized sigma falls below the CMB's (T+E at the experiment's l_max); null: not reached on the grid; below_grid: already below at the first grid point (a bound, not a found point).</p>\n");
     s.push_str(&json_table(array(summary, "crossover"), &[]));

@@ -19,14 +19,16 @@ use crate::survey::layout::Layout;
 use crate::survey::response::{ShapeInput, SigmaTable, TracerResponse};
 use crate::survey::spec::Survey;
 use crate::survey::triangles::{TriPoint, TriRow, triangle_rows};
-use crate::triangle_class::{ClassBudget, PLANE_CELLS, PlaneDensity, TriangleClass, plane_point};
+use crate::triangle_class::{
+    ClassBudget, PLANE_CELLS_COARSE, PlaneDensity, TriangleClass, plane_cell,
+};
 
 /// The information of one group of triangles, summed over redshift bins.
 #[derive(Debug, Clone, PartialEq)]
 pub struct TriangleGroup {
     /// Configuration class.
     pub class: TriangleClass,
-    /// Cell of the triangle plane ([`crate::triangle_class::PlaneDensity`] indexing).
+    /// Cell of the triangle plane ([`PLANE_CELLS_COARSE`] per axis).
     pub cell: usize,
     /// A representative point (x, y) of the group (information-weighted would need the
     /// signal; this is the cell centre).
@@ -36,11 +38,10 @@ pub struct TriangleGroup {
 }
 
 fn group_of(k: [f64; 3]) -> (TriangleClass, usize) {
-    let (x, y) = plane_point(k);
-    let n = PLANE_CELLS;
-    let ix = ((x * n as f64) as usize).min(n - 1);
-    let iy = (((y - 0.5) * 2.0 * n as f64).max(0.0) as usize).min(n - 1);
-    (TriangleClass::of(k[0], k[1], k[2]), iy * n + ix)
+    (
+        TriangleClass::of(k[0], k[1], k[2]),
+        plane_cell(k, PLANE_CELLS_COARSE),
+    )
 }
 
 /// The Gaussian, unmarginalized bispectrum information per triangle group at one k_max
@@ -137,14 +138,14 @@ pub fn triangle_information(
             }
         }
     }
-    let n = PLANE_CELLS as f64;
+    let n = PLANE_CELLS_COARSE as f64;
     acc.into_iter()
         .map(|(class, cell, info)| TriangleGroup {
             class,
             cell,
             xy: (
-                ((cell % PLANE_CELLS) as f64 + 0.5) / n,
-                0.5 + ((cell / PLANE_CELLS) as f64 + 0.5) / (2.0 * n),
+                ((cell % PLANE_CELLS_COARSE) as f64 + 0.5) / n,
+                0.5 + ((cell / PLANE_CELLS_COARSE) as f64 + 0.5) / (2.0 * n),
             ),
             info,
         })
@@ -176,7 +177,7 @@ pub fn triangle_budget(
 ) -> TriangleBudget {
     let groups = triangle_information(survey, power, bg, shapes, kmax_mpc, st);
     let h = bg.cosmology().h();
-    let n = PLANE_CELLS;
+    let n = PLANE_CELLS_COARSE;
     let mut classes = Vec::new();
     let mut plane = Vec::new();
     for s in 0..shapes.len() {
@@ -199,7 +200,7 @@ pub fn triangle_budget(
             share.iter_mut().for_each(|v| *v /= b.total);
         }
         classes.push(b);
-        plane.push(PlaneDensity { share });
+        plane.push(PlaneDensity { cells: n, share });
     }
     TriangleBudget {
         kmax_h_mpc: kmax_mpc / h,
