@@ -362,6 +362,10 @@ pub fn run_scenario_cached(
         // The configuration budget's cell bispectra, shared by every experiment.
         let budget = budget_lmax(&sc.lmax).map(|(lb, ib)| {
             progress(&format!("CMB information by configuration (l_max = {lb})"));
+            settings.progress.step(
+                &format!("CMB information by configuration (l_max = {lb})"),
+                None,
+            );
             let limits: Vec<(usize, usize, usize)> = sc
                 .experiments
                 .iter()
@@ -442,6 +446,10 @@ pub fn run_scenario_cached(
                 .then(|| survey_tau_fisher(s, power, &bg, &kmax_mpc, &st, TauCovariance::Gaussian));
             let triangle_budget = kmax_mpc.last().map(|&k| {
                 progress(&format!("survey information by triangle class: {}", s.name));
+                settings.progress.step(
+                    &format!("survey information by triangle class: {}", s.name),
+                    None,
+                );
                 triangle_budget(s, power, &bg, &shapes, k, &st)
             });
             surveys.push(SurveyResult {

@@ -180,6 +180,52 @@ fn csv_tables_npy_matrices_and_the_sidecar() {
             assert!((s - 1.0).abs() < 1e-12, "one bin holds everything: {r}");
         }
     }
+    // The configuration and triangle-class budgets: shares add up to one, the CMB cell
+    // sum agrees with the engine (l_max = 200: cells of one multipole below 30, 1.7% for
+    // the toy test's worst case at cells this narrow), local information is mostly
+    // squeezed.
+    let info = j["information"].as_array().unwrap();
+    let table = |prefix: &str| {
+        info.iter()
+            .find(|t| t["table"].as_str().unwrap().starts_with(prefix))
+            .unwrap_or_else(|| panic!("no {prefix} table"))
+    };
+    for prefix in ["information_by_configuration_", "information_by_class_"] {
+        let t = table(prefix);
+        assert!(t["description"].as_str().unwrap().contains("nearest corner"));
+        for r in t["rows"].as_array().unwrap() {
+            let s: f64 = ["squeezed_share", "equilateral_share", "flattened_share"]
+                .iter()
+                .map(|k| r[*k].as_f64().unwrap())
+                .sum();
+            assert!((s - 1.0).abs() < 1e-9, "{r}");
+            if let Some(q) = r.get("cell_sum_over_engine") {
+                let q = q.as_f64().unwrap();
+                assert!((q - 1.0).abs() < 0.03, "cell sum / engine {q}: {r}");
+                assert_eq!(r["lmax"], 200);
+            }
+            if r["shape"] == "local" {
+                assert!(r["squeezed_share"].as_f64().unwrap() > 0.5, "{r}");
+            }
+        }
+        assert!(out.join(format!("{}.svg", t["table"].as_str().unwrap())).is_file());
+    }
+    std::fs::remove_dir_all(&out).ok();
+}
+
+/// The tau_NL figures appear in the report page, not only as files.
+#[test]
+fn tau_nl_figures_are_in_the_page() {
+    let out = tmp("tau-page");
+    run_to(&out, &[], "tests/data/scenario_tau_nl.toml");
+    let html = std::fs::read_to_string(out.join("report.html")).unwrap();
+    assert!(html.contains("<figure id=\"sigma_vs_kmax_tau_nl\">"));
+    let lmax_tau = html
+        .match_indices("<figure id=\"sigma_vs_lmax_")
+        .filter(|(i, _)| html[*i..].split('>').next().unwrap().ends_with("_tau_nl\""))
+        .count();
+    assert_eq!(lmax_tau, 1, "one sigma(tau_NL) versus l_max figure per experiment");
+    assert!(html.contains("collapsed CMB trispectrum"));
     std::fs::remove_dir_all(&out).ok();
 }
 

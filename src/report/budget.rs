@@ -82,7 +82,7 @@ pub fn information_by_class(r: &RunResult) -> Vec<Artifact> {
         let mut t = Table::new(
             &format!("information_by_class_{}", slug(&s.survey.name)),
             &format!(
-                "{}: share of the bispectrum single-shape Fisher information F_ii by triangle class at {kname} = {k} h/Mpc, from the Gaussian covariance with the nuisances fixed (with the realistic covariance and marginalized nuisances the information does not split by triangle); {CLASS_RULE}, with s = k",
+                "{}: share of the bispectrum single-shape Fisher information F_ii by triangle class at {kname} = {k} h/Mpc, from the Gaussian covariance with the nuisances fixed (with the realistic covariance and marginalized nuisances the information does not split by triangle); {CLASS_RULE}, with s = k; figure cells sum the nodes of the triangle quadrature (grey: no node, or below 1e-4 of the largest cell)",
                 s.survey.name
             ),
             cols,
@@ -147,7 +147,7 @@ pub fn information_by_configuration(r: &RunResult) -> Vec<Artifact> {
         let mut t = Table::new(
             &format!("information_by_configuration_{}", slug(&c.experiment.name)),
             &format!(
-                "{}: share of the CMB bispectrum single-shape Fisher information F_ii by (l1, l2, l3) configuration class at l_max = {} (the covariance is diagonal in the triplets, so the shares are exact up to the cells: {} cells of consecutive multipoles, one multipole each below l = {}, at most {} wide, exact 3j weights per cell triple, bispectrum at each cell triple's weighted centre); {CLASS_RULE}, with s = l",
+                "{}: share of the CMB bispectrum single-shape Fisher information F_ii by (l1, l2, l3) configuration class at l_max = {} (the covariance is diagonal in the triplets, so the shares are exact up to the cells: {} cells of consecutive multipoles, one multipole each below l = {}, at most {} wide, exact 3j weights per cell triple, bispectrum at each cell triple's weighted centre); {CLASS_RULE}, with s = l; the figure shows the reference field set (grey cells: below 1e-4 of the largest)",
                 c.experiment.name,
                 b.lmax,
                 b.cells,

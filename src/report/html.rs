@@ -72,7 +72,7 @@ fn cell(v: &Value) -> (String, bool) {
 
 /// Keys shown first, in this order, when a table has them: what a row is about, then
 /// where on the grid; every other key follows in the order met.
-const LEADING: [&str; 15] = [
+const LEADING: [&str; 21] = [
     "folder",
     "experiment",
     "cmb_fields",
@@ -88,6 +88,12 @@ const LEADING: [&str; 15] = [
     "lmax",
     "kmax_h_mpc",
     "kmax_used_h_mpc",
+    "squeezed_share",
+    "equilateral_share",
+    "flattened_share",
+    "sn2_per_fnl2",
+    "sn2_per_fnl2_engine",
+    "cell_sum_over_engine",
 ];
 
 /// An HTML table of an array of JSON objects, skipping `skip` keys.
