@@ -40,6 +40,7 @@ pub mod scenario;
 pub mod shapes;
 pub mod special;
 pub mod survey;
+pub mod triangle_class;
 
 pub use error::{Error, Location, Result};
 

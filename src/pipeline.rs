@@ -14,6 +14,9 @@ use serde_json::{Value, json};
 use crate::cmb::bispectrum::{BispectrumPlan, CmbFisherInput, CmbForecast, cmb_fisher_with_plan};
 use crate::cmb::boltzmann::CacheOptions;
 use crate::cmb::collapsed::{CollapsedForecast, CollapsedSettings, tau_nl_fisher};
+use crate::cmb::config_budget::{
+    ConfigBudget, budget_grid, budget_lmax, cell_bispectra, config_budget, geometric_weights,
+};
 use crate::cmb::experiment::Experiment;
 use crate::cmb::thermal::ThermalHistory;
 use crate::cmb::transfer::{RadialGrid, TransferTable};
@@ -23,6 +26,7 @@ use crate::scenario::{LinearPowerChoice, Scenario, TransferChoice};
 use crate::survey::Survey;
 use crate::survey::fisher::{ShapeInput, SurveyForecast, SurveySettings, survey_fisher};
 use crate::survey::tau_nl::{TauCovariance, TauSurveyForecast, survey_tau_fisher};
+use crate::survey::triangle_budget::{TriangleBudget, triangle_budget};
 
 /// The CMB forecast of one experiment.
 #[derive(Debug, Clone)]
@@ -35,6 +39,8 @@ pub struct CmbResult {
     pub tau: Option<CollapsedForecast>,
     /// The ISW-lensing bias of f_NL (full transfer only: it needs our lensing potential).
     pub lensing: Option<crate::cmb::lensing::bias::LensingBias>,
+    /// The bispectrum information by l-configuration class.
+    pub config_budget: Option<ConfigBudget>,
 }
 
 /// The forecast of one survey.
@@ -46,6 +52,8 @@ pub struct SurveyResult {
     pub forecast: SurveyForecast,
     /// tau_NL from the tracers' power spectra (when the scenario lists `tau_nl`).
     pub tau: Option<TauSurveyForecast>,
+    /// The bispectrum information by triangle class (at the largest k_max).
+    pub triangle_budget: Option<TriangleBudget>,
 }
 
 /// Everything a run computed.
@@ -371,6 +379,23 @@ pub fn run_scenario_cached(
     if !sc.experiments.is_empty() {
         let pieces = cache.get(sc, &bg, settings, progress)?;
         transfer_meta = pieces.meta.clone();
+        // The configuration budget's cell bispectra, shared by every experiment.
+        let budget = budget_lmax(&sc.lmax).map(|(lb, ib)| {
+            progress(&format!("CMB information by configuration (l_max = {lb})"));
+            settings.progress.step(
+                &format!("CMB information by configuration (l_max = {lb})"),
+                None,
+            );
+            let limits: Vec<(usize, usize, usize)> = sc
+                .experiments
+                .iter()
+                .map(|e| (e.l_min, e.lmax_t, e.lmax_e))
+                .collect();
+            let grid = budget_grid(lb, &limits);
+            let w = geometric_weights(&grid, lb, settings.parallel);
+            let cb = cell_bispectra(&pieces.plan, &pieces.radial, &grid, &w, settings.parallel);
+            (lb, ib, grid, cb)
+        });
         for e in &sc.experiments {
             progress(&format!("CMB bispectrum Fisher: {}", e.name));
             settings
@@ -406,11 +431,20 @@ pub fn run_scenario_cached(
                     settings.parallel,
                 )
             });
+            let config_budget = budget.as_ref().map(|(lb, ib, grid, cb)| {
+                let engine: Vec<Vec<f64>> = forecast
+                    .fisher
+                    .iter()
+                    .map(|f| (0..f[*ib].len()).map(|s| f[*ib].get(s, s)).collect())
+                    .collect();
+                config_budget(&p, cb, grid, *lb, &forecast.shapes, &engine)
+            });
             cmb.push(CmbResult {
                 experiment: e.clone(),
                 forecast,
                 tau,
                 lensing,
+                config_budget,
             });
         }
     }
@@ -443,10 +477,19 @@ pub fn run_scenario_cached(
             let tau = sc
                 .tau_nl
                 .then(|| survey_tau_fisher(s, power, &bg, &kmax_mpc, &st, TauCovariance::Gaussian));
+            let triangle_budget = kmax_mpc.last().map(|&k| {
+                progress(&format!("survey information by triangle class: {}", s.name));
+                settings.progress.step(
+                    &format!("survey information by triangle class: {}", s.name),
+                    None,
+                );
+                triangle_budget(s, power, &bg, &shapes, k, &st)
+            });
             surveys.push(SurveyResult {
                 survey: s.clone(),
                 forecast,
                 tau,
+                triangle_budget,
             });
         }
     }

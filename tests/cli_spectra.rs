@@ -27,7 +27,7 @@ fn csv_header_units_and_rows() {
     let lines: Vec<&str> = s.lines().collect();
     // One header row, then the data; the units and conventions are in the ECSV header.
     let header = lines[0];
-    assert_eq!(header, "ell,dl_tt_uk2,dl_ee_uk2,dl_te_uk2");
+    assert_eq!(header, "multipole,dl_tt_uk2,dl_ee_uk2,dl_te_uk2");
     let e = run(&[
         "spectra",
         "--transfer",
@@ -86,10 +86,10 @@ fn json_shape_and_resolved_inputs() {
     assert!(inp["cosmology"]["hubble_constant_km_s_mpc"].is_number());
     let rows = j["rows"].as_array().unwrap();
     assert_eq!(rows.len(), 59);
-    for key in ["ell", "dl_tt_uk2", "dl_ee_uk2", "dl_te_uk2"] {
+    for key in ["multipole", "dl_tt_uk2", "dl_ee_uk2", "dl_te_uk2"] {
         assert!(rows[10][key].is_number(), "row lacks {key}");
     }
-    assert_eq!(rows[0]["ell"], 2);
+    assert_eq!(rows[0]["multipole"], 2);
     assert_eq!(rows[0].as_object().unwrap().len(), 4);
 }
 

@@ -180,6 +180,52 @@ fn csv_tables_npy_matrices_and_the_sidecar() {
             assert!((s - 1.0).abs() < 1e-12, "one bin holds everything: {r}");
         }
     }
+    // The configuration and triangle-class budgets: shares add up to one, the CMB cell
+    // sum agrees with the engine (l_max = 200: cells of one multipole below 30, 1.7% for
+    // the toy test's worst case at cells this narrow), local information is mostly
+    // squeezed.
+    let info = j["information"].as_array().unwrap();
+    let table = |prefix: &str| {
+        info.iter()
+            .find(|t| t["table"].as_str().unwrap().starts_with(prefix))
+            .unwrap_or_else(|| panic!("no {prefix} table"))
+    };
+    for prefix in ["information_by_configuration_", "information_by_class_"] {
+        let t = table(prefix);
+        assert!(t["description"].as_str().unwrap().contains("nearest corner"));
+        for r in t["rows"].as_array().unwrap() {
+            let s: f64 = ["squeezed_share", "equilateral_share", "flattened_share"]
+                .iter()
+                .map(|k| r[*k].as_f64().unwrap())
+                .sum();
+            assert!((s - 1.0).abs() < 1e-9, "{r}");
+            if let Some(q) = r.get("cell_sum_over_engine") {
+                let q = q.as_f64().unwrap();
+                assert!((q - 1.0).abs() < 0.03, "cell sum / engine {q}: {r}");
+                assert_eq!(r["lmax"], 200);
+            }
+            if r["shape"] == "local" {
+                assert!(r["squeezed_share"].as_f64().unwrap() > 0.5, "{r}");
+            }
+        }
+        assert!(out.join(format!("{}.svg", t["table"].as_str().unwrap())).is_file());
+    }
+    std::fs::remove_dir_all(&out).ok();
+}
+
+/// The tau_NL figures appear in the report page, not only as files.
+#[test]
+fn tau_nl_figures_are_in_the_page() {
+    let out = tmp("tau-page");
+    run_to(&out, &[], "tests/data/scenario_tau_nl.toml");
+    let html = std::fs::read_to_string(out.join("report.html")).unwrap();
+    assert!(html.contains("<figure id=\"sigma_vs_kmax_tau_nl\">"));
+    let lmax_tau = html
+        .match_indices("<figure id=\"sigma_vs_lmax_")
+        .filter(|(i, _)| html[*i..].split('>').next().unwrap().ends_with("_tau_nl\""))
+        .count();
+    assert_eq!(lmax_tau, 1, "one sigma(tau_NL) versus l_max figure per experiment");
+    assert!(html.contains("collapsed CMB trispectrum"));
     std::fs::remove_dir_all(&out).ok();
 }
 
@@ -287,4 +333,34 @@ fn run_help_lists_every_format() {
     }
     let o = run(&["run", "--format", "csv"]);
     assert_eq!(o.status.code(), Some(2), "run accepted a format it ignores");
+}
+
+/// Every figure of a run with two experiments and two surveys (three probes each, the
+/// layout where a survey line once took a CMB band's colour) keeps its items apart: no
+/// two series of one figure share colour and dash, no band takes a series' colour.
+#[test]
+fn every_series_of_a_figure_is_distinguishable() {
+    let root = env!("CARGO_MANIFEST_DIR");
+    let dir = tmp("styles");
+    let path = dir.join("scenario.toml");
+    std::fs::write(
+        &path,
+        format!(
+            "[scenario]\nname = \"styles\"\nshapes = [\"local\", \"equilateral\"]\nlmax = [60, 120]\nkmax_h_mpc = [0.03, 0.05]\nfields = [\"T\", \"E\", \"T+E\"]\nprobes = [\"P\", \"B\", \"P+B\"]\ntransfer = \"shell\"\n[[cmb]]\nfile = \"{root}/surveys/cmb_satellite.toml\"\n[[cmb]]\nfile = \"{root}/surveys/cmb_ground.toml\"\n[[survey]]\nfile = \"{root}/tests/data/survey_small.toml\"\n[[survey]]\nfile = \"{root}/tests/data/survey_small.toml\"\nset = {{ name = \"Second Small\" }}\n"
+        ),
+    )
+    .unwrap();
+    let sc = ngreach::scenario::load_scenario(&path).unwrap();
+    let r = ngreach::pipeline::run_scenario(&sc, &Default::default(), &mut |_| {}).unwrap();
+    let arts = ngreach::report::artifacts::all(&r);
+    let mut n = 0;
+    for a in &arts {
+        if let Some(f) = &a.figure {
+            n += 1;
+            let c = ngreach::report::figures::style_clashes(f);
+            assert!(c.is_empty(), "{}: {c:?}", a.table.stem);
+        }
+    }
+    assert!(n >= 8, "only {n} figures");
+    let _ = std::fs::remove_dir_all(&dir);
 }

@@ -22,6 +22,7 @@
 pub mod bispectrum;
 pub mod boltzmann;
 pub mod collapsed;
+pub mod config_budget;
 pub mod experiment;
 pub mod lensing;
 pub mod shell;

@@ -115,7 +115,7 @@ pub fn spectra_report(c: &Cosmology, source: &str, o: &SpectraOptions) -> Result
     let mut r = Report::new("spectra");
     r.notes = vec![
         format!(
-            "dl_*_uk2: D_l = l(l+1) C_l / 2pi in microkelvin^2 (uK^2), unlensed, T_CMB = {} K; ell is the multipole",
+            "dl_*_uk2: D_l = l(l+1) C_l / 2pi in microkelvin^2 (uK^2), unlensed, T_CMB = {} K; multipole: the multipole l of the row (inputs.lmax is the largest)",
             c.params().t_cmb_k
         ),
         "transfer: idealized last-scattering shell (a model, not the full physics): Sachs-Wolfe temperature Delta T/T = -Phi/3, tight-coupling E-mode model, Gaussian shell in comoving distance; no acoustic driving, Doppler, ISW or reionization in T".into(),
@@ -160,10 +160,10 @@ pub fn spectra_report(c: &Cosmology, source: &str, o: &SpectraOptions) -> Result
     Ok(r)
 }
 
-/// The contract columns `ell,dl_tt_uk2,dl_ee_uk2,dl_te_uk2`: D_l = l(l+1) C_l / 2pi in
-/// microkelvin^2 for l = 2..=lmax.
+/// The contract columns `multipole,dl_tt_uk2,dl_ee_uk2,dl_te_uk2`: the multipole l of
+/// the row (not an l_max) and D_l = l(l+1) C_l / 2pi in microkelvin^2, l = 2..=lmax.
 fn dl_rows(r: &mut Report, lmax: usize, t_uk: f64, tt: &[f64], ee: &[f64], te: &[f64]) {
-    r.columns = ["ell", "dl_tt_uk2", "dl_ee_uk2", "dl_te_uk2"]
+    r.columns = ["multipole", "dl_tt_uk2", "dl_ee_uk2", "dl_te_uk2"]
         .iter()
         .map(|s| s.to_string())
         .collect();
@@ -200,7 +200,7 @@ fn full_report(
     let kind = if o.lensed { "lensed" } else { "unlensed" };
     r.notes = vec![
         format!(
-            "dl_*_uk2: D_l = l(l+1) C_l / 2pi in microkelvin^2 (uK^2), {kind}, T_CMB = {} K; ell is the multipole",
+            "dl_*_uk2: D_l = l(l+1) C_l / 2pi in microkelvin^2 (uK^2), {kind}, T_CMB = {} K; multipole: the multipole l of the row (inputs.lmax is the largest)",
             c.params().t_cmb_k
         ),
         "transfer: line-of-sight Boltzmann solution (synchronous gauge, massless neutrinos)".into(),
@@ -213,9 +213,9 @@ fn full_report(
     let lens = crate::cmb::lensing::lensing_of(c, th, bg, &table, o.lmax, 0.0, 1, true)?;
     let l = &lens.lensed;
     dl_rows(&mut r, o.lmax, t_uk, &l.tt, &l.ee, &l.te);
-    r.notes.push("lensing: our linear lensing potential (line of sight to L = 100, Limber above) and the curved-sky correlation-function method (Challinor & Lewis 2005); dl_bb_uk2: lensing B modes only; dl_pp: [L(L+1)]^2 C_L^{phi phi} / 2pi, dimensionless".into());
+    r.notes.push("lensing: our linear lensing potential (line of sight to L = 100, Limber above) and the curved-sky correlation-function method (Challinor & Lewis 2005); dl_bb_uk2: lensing B modes only; dl_lensing_potential: [L(L+1)]^2 C_L^{phi phi} / 2pi of the lensing potential phi at L = multipole, dimensionless".into());
     r.columns.push("dl_bb_uk2".into());
-    r.columns.push("dl_pp".into());
+    r.columns.push("dl_lensing_potential".into());
     for (row, ell) in r.rows.iter_mut().zip(2..) {
         let f = (ell * (ell + 1)) as f64 / (2.0 * std::f64::consts::PI);
         row.push(num(f * t_uk * t_uk * l.bb[ell]));
@@ -265,7 +265,10 @@ mod tests {
     fn report_has_the_contract_columns() {
         let c = Cosmology::planck2018();
         let r = spectra_report(&c, "test", &opts(40, None)).unwrap();
-        assert_eq!(r.columns, ["ell", "dl_tt_uk2", "dl_ee_uk2", "dl_te_uk2"]);
+        assert_eq!(
+            r.columns,
+            ["multipole", "dl_tt_uk2", "dl_ee_uk2", "dl_te_uk2"]
+        );
         assert_eq!(r.rows.len(), 39);
         assert_eq!(r.rows[0][0], Value::from(2u64));
         assert!(r.inputs["chi_star_mpc"].as_f64().unwrap() > 13_000.0);

@@ -102,10 +102,12 @@ pub fn sigma_vs_kmax(r: &RunResult) -> Vec<Artifact> {
                         v.into(),
                     ]);
                 }
+                // Colour by probe, dash (and marker) by survey; surveys beyond the second
+                // move to the next three colours.
                 series.push(Series {
                     label: format!("{} {}", s.survey.name, p.label()),
                     points: pts,
-                    colour: ip + 3 * isv,
+                    colour: ip + 3 * (isv / 2),
                     dashed: isv % 2 == 1,
                 });
             }
@@ -149,8 +151,12 @@ pub fn sigma_vs_kmax(r: &RunResult) -> Vec<Artifact> {
                 },
                 lo: lo.min(hi),
                 hi: lo.max(hi),
-                colour: 5 + ic,
+                colour: ic,
             });
+        }
+        let free = crate::report::figures::band_colours(&series, bands.len());
+        for (b, c) in bands.iter_mut().zip(free) {
+            b.colour = c;
         }
         let figure = (!series.is_empty()).then(|| {
             Figure::Lines(LinePlot {

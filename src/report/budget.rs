@@ -3,99 +3,196 @@
 //! - cumulative (S/N)^2 for f_NL = 1 (the single-shape Fisher information F_ii) versus
 //!   l_max per experiment and field set, and versus k_max per survey and probe;
 //! - the share of a survey's information by redshift bin (at the largest k_max);
-//! - the share by triangle class (squeezed, equilateral, flattened) of any list of
-//!   per-triangle contributions, through [`triangle_class_budget`]: the classes are the
-//!   Voronoi cells of the three corners of the triangle plane (x, y) = (k1/k3, k2/k3),
-//!   k1 <= k2 <= k3: squeezed (0, 1), equilateral (1, 1), flattened (1/2, 1/2).
+//! - the share of a survey's bispectrum information by triangle class (squeezed,
+//!   equilateral, flattened; [`crate::triangle_class`]) at the largest k_max, from the
+//!   Gaussian covariance with the nuisances fixed ([`crate::survey::triangle_budget`]);
+//! - the share of a CMB experiment's bispectrum information by (l1, l2, l3) configuration
+//!   class ([`crate::cmb::config_budget`]), with the cell sum checked against the engine.
 
 use crate::pipeline::RunResult;
 use crate::report::artifacts::{Artifact, cmb_reference_set, headline_probe, own_lmax, pidx};
-use crate::report::figures::{Figure, LinePlot, Series};
+use crate::report::figures::{Figure, LinePlot, Series, TrianglePlot};
 use crate::report::format_sig;
 use crate::report::outputs::slug;
 use crate::report::table::{Column, Table};
-
-/// A triangle configuration class.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
-#[serde(rename_all = "lowercase")]
-pub enum TriangleClass {
-    /// One side much shorter than the other two.
-    Squeezed,
-    /// Three nearly equal sides.
-    Equilateral,
-    /// The two shorter sides nearly add up to the longest.
-    Flattened,
-}
-
-impl TriangleClass {
-    /// The class of a triangle with sides (a, b, c) in any order and unit (wavenumbers or
-    /// multipoles): the corner of the (k1/k3, k2/k3) plane nearest to the triangle.
-    pub fn of(a: f64, b: f64, c: f64) -> TriangleClass {
-        let mut s = [a, b, c];
-        s.sort_by(f64::total_cmp);
-        let (x, y) = (s[0] / s[2], s[1] / s[2]);
-        let d = |cx: f64, cy: f64| (x - cx).powi(2) + (y - cy).powi(2);
-        let (sq, eq, fl) = (d(0.0, 1.0), d(1.0, 1.0), d(0.5, 0.5));
-        if sq <= eq && sq <= fl {
-            TriangleClass::Squeezed
-        } else if eq <= fl {
-            TriangleClass::Equilateral
-        } else {
-            TriangleClass::Flattened
-        }
-    }
-
-    /// Lower-case name.
-    pub fn name(self) -> &'static str {
-        match self {
-            TriangleClass::Squeezed => "squeezed",
-            TriangleClass::Equilateral => "equilateral",
-            TriangleClass::Flattened => "flattened",
-        }
-    }
-}
-
-/// Shares of the information by triangle class.
-#[derive(Debug, Clone, Copy, PartialEq, Default, serde::Serialize)]
-pub struct ClassBudget {
-    /// Share from squeezed triangles.
-    pub squeezed: f64,
-    /// Share from equilateral triangles.
-    pub equilateral: f64,
-    /// Share from flattened triangles.
-    pub flattened: f64,
-    /// The total information summed.
-    pub total: f64,
-}
-
-/// The share of the information by triangle class from per-triangle contributions
-/// ((side lengths), Fisher information of that triangle).
-pub fn triangle_class_budget(
-    contributions: impl IntoIterator<Item = ([f64; 3], f64)>,
-) -> ClassBudget {
-    let mut b = ClassBudget::default();
-    for ([a, bb, c], f) in contributions {
-        match TriangleClass::of(a, bb, c) {
-            TriangleClass::Squeezed => b.squeezed += f,
-            TriangleClass::Equilateral => b.equilateral += f,
-            TriangleClass::Flattened => b.flattened += f,
-        }
-        b.total += f;
-    }
-    if b.total > 0.0 {
-        b.squeezed /= b.total;
-        b.equilateral /= b.total;
-        b.flattened /= b.total;
-    }
-    b
-}
+pub use crate::triangle_class::{ClassBudget, TriangleClass, triangle_class_budget};
+use crate::triangle_class::{PLANE_CELLS, PlaneDensity};
 
 /// The budget tables and figures of a run.
 pub fn budgets(r: &RunResult) -> Vec<Artifact> {
     let mut v = information_vs_lmax(r);
     v.extend(information_vs_kmax(r));
     v.extend(information_by_bin(r));
+    v.extend(information_by_class(r));
+    v.extend(information_by_configuration(r));
     v
+}
+
+/// The class boundaries in words, for table descriptions and captions.
+pub const CLASS_RULE: &str = "classes are the nearest corner of the plane (x, y) = (s1/s3, s2/s3), s1 <= s2 <= s3: squeezed (0, 1) where x <= 1/2 and y >= x + 1/2, equilateral (1, 1) where x > 1/2 and x + y > 3/2, flattened (1/2, 1/2) otherwise (sq, eq, fl in the figures; dashed lines: the class boundaries)";
+
+fn class_columns() -> Vec<Column> {
+    vec![
+        Column::new(
+            "squeezed_share",
+            "share of the information in squeezed configurations",
+        ),
+        Column::new(
+            "equilateral_share",
+            "share of the information in equilateral configurations",
+        ),
+        Column::new(
+            "flattened_share",
+            "share of the information in flattened configurations",
+        ),
+    ]
+}
+
+fn plane_cells(planes: &[&PlaneDensity]) -> usize {
+    planes.first().map_or(PLANE_CELLS, |p| p.cells)
+}
+
+fn plane_panels(shapes: &[String], planes: &[&PlaneDensity]) -> Vec<(String, Vec<f64>)> {
+    shapes
+        .iter()
+        .zip(planes)
+        .map(|(s, p)| (s.clone(), p.share.clone()))
+        .collect()
+}
+
+/// Per survey: the share of the bispectrum information by triangle class at the largest
+/// k_max (Gaussian covariance, nuisances fixed), with the triangle-plane figure.
+pub fn information_by_class(r: &RunResult) -> Vec<Artifact> {
+    let mut out = Vec::new();
+    for s in &r.surveys {
+        let Some(b) = &s.triangle_budget else {
+            continue;
+        };
+        let kname = crate::report::kmax_name(&s.survey);
+        let k = format_sig(b.kmax_h_mpc, 3);
+        let mut cols = vec![
+            Column::new("shape", "primordial shape"),
+            Column::new("kmax_h_mpc", "survey k_max of the budget"),
+        ];
+        cols.extend(class_columns());
+        cols.push(Column::new(
+            "sn2_per_fnl2_gaussian",
+            "bispectrum (S/N)^2 for f_NL = 1: Gaussian covariance, nuisances fixed (the sum the shares divide)",
+        ));
+        let mut t = Table::new(
+            &format!("information_by_class_{}", slug(&s.survey.name)),
+            &format!(
+                "{}: share of the bispectrum single-shape Fisher information F_ii by triangle class at {kname} = {k} h/Mpc, from the Gaussian covariance with the nuisances fixed (with the realistic covariance and marginalized nuisances the information does not split by triangle); {CLASS_RULE}, with s = k; figure cells sum the nodes of the triangle quadrature (grey: no node, or below 1e-4 of the largest cell)",
+                s.survey.name
+            ),
+            cols,
+        );
+        for (shape, c) in b.shapes.iter().zip(&b.classes) {
+            t.push(vec![
+                shape.clone().into(),
+                b.kmax_h_mpc.into(),
+                c.squeezed.into(),
+                c.equilateral.into(),
+                c.flattened.into(),
+                c.total.into(),
+            ]);
+        }
+        let planes: Vec<&PlaneDensity> = b.plane.iter().collect();
+        out.push(Artifact {
+            table: t,
+            figure: Some(Figure::Triangles(TrianglePlot {
+                title: format!(
+                    "{}: B information per triangle, {kname} = {k} h/Mpc",
+                    s.survey.name
+                ),
+                x_label: "k₁/k₃ (k₁ ≤ k₂ ≤ k₃)".into(),
+                y_label: "k₂/k₃".into(),
+                cells: plane_cells(&planes),
+                panels: plane_panels(&b.shapes, &planes),
+                value_label: "share of F_ii per cell (Gaussian cov., nuisances fixed)".into(),
+            })),
+        });
+    }
+    out
+}
+
+/// Per experiment: the share of the CMB bispectrum information by (l1, l2, l3)
+/// configuration class at the budget's l_max, every field set and shape, with the check
+/// against the engine and the triangle-plane figure of the reference field set.
+pub fn information_by_configuration(r: &RunResult) -> Vec<Artifact> {
+    let mut out = Vec::new();
+    for c in &r.cmb {
+        let Some(b) = &c.config_budget else { continue };
+        let mut cols = vec![
+            Column::new("fields", "CMB field set"),
+            Column::new("shape", "primordial shape"),
+            Column::new(
+                "lmax",
+                "l_max of the budget (capped at each field's own l_max)",
+            ),
+        ];
+        cols.extend(class_columns());
+        cols.push(Column::new(
+            "sn2_per_fnl2",
+            "(S/N)^2 for f_NL = 1 summed over multipole cells (the sum the shares divide)",
+        ));
+        cols.push(Column::new(
+            "sn2_per_fnl2_engine",
+            "(S/N)^2 for f_NL = 1 from the Fisher engine at the same l_max",
+        ));
+        cols.push(Column::new(
+            "cell_sum_over_engine",
+            "cell sum over the engine's value (the accuracy of the budget's multipole cells)",
+        ));
+        let mut t = Table::new(
+            &format!("information_by_configuration_{}", slug(&c.experiment.name)),
+            &format!(
+                "{}: share of the CMB bispectrum single-shape Fisher information F_ii by (l1, l2, l3) configuration class at l_max = {} (the covariance is diagonal in the triplets, so the shares are exact up to the cells: {} cells of consecutive multipoles, one multipole each below l = {}, at most {} wide, exact 3j weights per cell triple, bispectrum at each cell triple's weighted centre); {CLASS_RULE}, with s = l; the figure shows the reference field set (grey cells: below 1e-4 of the largest)",
+                c.experiment.name,
+                b.lmax,
+                b.cells,
+                crate::cmb::config_budget::BUDGET_L_FINE,
+                b.max_cell_width
+            ),
+            cols,
+        );
+        for row in &b.rows {
+            let cb = &row.classes;
+            t.push(vec![
+                row.field_set.label().into(),
+                row.shape.clone().into(),
+                b.lmax.into(),
+                cb.squeezed.into(),
+                cb.equilateral.into(),
+                cb.flattened.into(),
+                cb.total.into(),
+                row.engine_information.into(),
+                (cb.total / row.engine_information).into(),
+            ]);
+        }
+        let te = cmb_reference_set(&c.forecast.field_sets);
+        let fs = c.forecast.field_sets.get(te).copied();
+        let rows: Vec<_> = b.rows.iter().filter(|x| Some(x.field_set) == fs).collect();
+        let shapes: Vec<String> = rows.iter().map(|x| x.shape.clone()).collect();
+        let planes: Vec<&PlaneDensity> = rows.iter().map(|x| &x.plane).collect();
+        out.push(Artifact {
+            table: t,
+            figure: Some(Figure::Triangles(TrianglePlot {
+                title: format!(
+                    "{}: bispectrum information per configuration, {} at ℓₘₐₓ = {}",
+                    c.experiment.name,
+                    fs.map_or("", |f| f.label()),
+                    b.lmax
+                ),
+                x_label: "ℓ₁/ℓ₃ (ℓ₁ ≤ ℓ₂ ≤ ℓ₃)".into(),
+                y_label: "ℓ₂/ℓ₃".into(),
+                cells: plane_cells(&planes),
+                panels: plane_panels(&shapes, &planes),
+                value_label: "share of F_ii per cell".into(),
+            })),
+        });
+    }
+    out
 }
 
 /// Cumulative (S/N)^2 versus l_max per experiment (every field set and shape).
@@ -294,30 +391,5 @@ fn cumulative_artifact(t: Table, name: &str, x_label: String, series: Vec<Series
             series,
             bands: vec![],
         })),
-    }
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn triangle_classes_by_nearest_corner() {
-        assert_eq!(TriangleClass::of(1.0, 1.0, 1.0), TriangleClass::Equilateral);
-        assert_eq!(TriangleClass::of(0.05, 1.0, 1.0), TriangleClass::Squeezed);
-        assert_eq!(TriangleClass::of(1.0, 0.5, 0.5), TriangleClass::Flattened);
-        assert_eq!(TriangleClass::of(2.0, 1.9, 0.2), TriangleClass::Squeezed);
-    }
-
-    #[test]
-    fn class_budget_shares_sum_to_one() {
-        let b = triangle_class_budget([
-            ([1.0, 1.0, 1.0], 2.0),
-            ([0.1, 1.0, 1.0], 1.0),
-            ([0.5, 0.5, 1.0], 1.0),
-        ]);
-        assert!((b.equilateral - 0.5).abs() < 1e-15);
-        assert!((b.squeezed - 0.25).abs() < 1e-15 && (b.flattened - 0.25).abs() < 1e-15);
-        assert_eq!(b.total, 4.0);
     }
 }

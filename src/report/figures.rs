@@ -20,8 +20,10 @@ use crate::error::{Error, Result};
 
 mod ellipses;
 mod plane;
+mod triangle;
 
 pub use ellipses::{delta_chi2, ellipse_points};
+pub use triangle::TrianglePlot;
 
 const FONT: &[u8] = include_bytes!("../../assets/fonts/DejaVuSans.ttf");
 const FAMILY: &str = "ngreach-sans";
@@ -51,7 +53,7 @@ fn register_font() {
 }
 
 fn colour(i: usize) -> RGBColor {
-    let (r, g, b) = PALETTE[i % 7];
+    let (r, g, b) = PALETTE[i % LINE_COLOURS];
     RGBColor(r, g, b)
 }
 
@@ -438,13 +440,22 @@ where
                     continue;
                 }
                 let style = c.stroke_width(4);
+                // Dashed series carry square markers and a dashed legend key, solid ones
+                // round markers: colour, dash and marker together tell series apart.
                 if s.dashed {
                     chart
                         .draw_series(DashedLineSeries::new(pts.clone(), 14, 8, style))
                         .map_err(draw_err)?
                         .label(&s.label)
                         .legend(move |(x, y)| {
-                            PathElement::new([(x, y), (x + 30, y)], c.stroke_width(4))
+                            let seg = |a: i32, b: i32| {
+                                PathElement::new([(x + a, y), (x + b, y)], c.stroke_width(4))
+                            };
+                            EmptyElement::at((0, 0))
+                                + seg(0, 9)
+                                + seg(15, 24)
+                                + seg(30, 36)
+                                + Rectangle::new([(x + 13, y - 5), (x + 23, y + 5)], c.filled())
                         });
                 } else {
                     chart
@@ -452,13 +463,23 @@ where
                         .map_err(draw_err)?
                         .label(&s.label)
                         .legend(move |(x, y)| {
-                            PathElement::new([(x, y), (x + 30, y)], c.stroke_width(4))
+                            EmptyElement::at((0, 0))
+                                + PathElement::new([(x, y), (x + 36, y)], c.stroke_width(4))
+                                + Circle::new((x + 18, y), 5, c.filled())
                         });
                 }
                 if !steps {
-                    chart
-                        .draw_series(pts.iter().map(|&q| Circle::new(q, 5, c.filled())))
-                        .map_err(draw_err)?;
+                    if s.dashed {
+                        chart
+                            .draw_series(pts.iter().map(|&q| {
+                                EmptyElement::at(q) + Rectangle::new([(-5, -5), (5, 5)], c.filled())
+                            }))
+                            .map_err(draw_err)?;
+                    } else {
+                        chart
+                            .draw_series(pts.iter().map(|&q| Circle::new(q, 5, c.filled())))
+                            .map_err(draw_err)?;
+                    }
                 }
             }
             if !labels.is_empty() {
@@ -507,6 +528,8 @@ pub enum Figure {
     Plane(PlanePlot),
     /// Ellipses in a plane.
     Ellipses(EllipsePlot),
+    /// Shares of the information on the triangle plane, one panel per shape.
+    Triangles(TrianglePlot),
 }
 
 /// A heat map over two log axes.
@@ -544,6 +567,76 @@ pub struct EllipsePlot {
     pub y_label: String,
     /// (label, 2x2 covariance [cxx, cxy, cyy], palette index).
     pub ellipses: Vec<(String, [f64; 3], usize)>,
+}
+
+/// Palette slots a line can get (the yellow last entry is for bands only).
+pub const LINE_COLOURS: usize = 7;
+
+/// Colours for `n` bands that no series of `series` uses (from the end of the palette),
+/// cycling when the palette runs out.
+pub fn band_colours(series: &[Series], n: usize) -> Vec<usize> {
+    let used: Vec<usize> = series.iter().map(|s| s.colour % LINE_COLOURS).collect();
+    let free: Vec<usize> = (0..LINE_COLOURS)
+        .rev()
+        .filter(|c| !used.contains(c))
+        .collect();
+    (0..n)
+        .map(|i| {
+            if free.is_empty() {
+                i % LINE_COLOURS
+            } else {
+                free[i % free.len()]
+            }
+        })
+        .collect()
+}
+
+/// Pairs of items of a figure that a reader could not tell apart: two series (in one
+/// panel) with the same colour and dash (and so the same marker), a band with the colour
+/// of a series, or two bands with the same colour and outline dash; ellipse sets with the
+/// same colour. Empty when every item is distinguishable.
+pub fn style_clashes(fig: &Figure) -> Vec<String> {
+    let mut out = Vec::new();
+    let mut lines = |p: &LinePlot| {
+        let key = |c: usize| c % LINE_COLOURS;
+        for (i, a) in p.series.iter().enumerate() {
+            for b in &p.series[i + 1..] {
+                if key(a.colour) == key(b.colour) && a.dashed == b.dashed {
+                    out.push(format!("series '{}' and '{}'", a.label, b.label));
+                }
+            }
+            for band in &p.bands {
+                if key(a.colour) == key(band.colour) {
+                    out.push(format!("series '{}' and band '{}'", a.label, band.label));
+                }
+            }
+        }
+        for (i, a) in p.bands.iter().enumerate() {
+            for (j, b) in p.bands.iter().enumerate().skip(i + 1) {
+                if key(a.colour) == key(b.colour) && i % 2 == j % 2 {
+                    out.push(format!("bands '{}' and '{}'", a.label, b.label));
+                }
+            }
+        }
+    };
+    match fig {
+        Figure::Lines(p) | Figure::Steps(p) => lines(p),
+        Figure::TwoPanel(a, b) => {
+            lines(a);
+            lines(b);
+        }
+        Figure::Ellipses(p) => {
+            for (i, a) in p.ellipses.iter().enumerate() {
+                for b in &p.ellipses[i + 1..] {
+                    if a.2 % LINE_COLOURS == b.2 % LINE_COLOURS {
+                        out.push(format!("ellipses '{}' and '{}'", a.0, b.0));
+                    }
+                }
+            }
+        }
+        Figure::Plane(_) | Figure::Triangles(_) => {}
+    }
+    out
 }
 
 /// Writes `fig` as `stem.png` and `stem.svg` in `dir`; returns the SVG text.
@@ -595,6 +688,7 @@ where
         }
         Figure::Plane(p) => plane::draw_plane(root, p),
         Figure::Ellipses(p) => ellipses::draw_ellipses(root, p),
+        Figure::Triangles(p) => triangle::draw_triangles(root, p),
     }
 }
 

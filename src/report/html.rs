@@ -16,7 +16,6 @@ use html_escape::{encode_double_quoted_attribute as attr, encode_text as esc};
 use serde_json::Value;
 
 use crate::pipeline::RunResult;
-use crate::report::artifacts::Artifact;
 use crate::report::format_sig;
 use crate::report::table::TableFormat;
 
@@ -25,7 +24,8 @@ const STYLE: &str = r#"
 body { font-family: ngreach-sans, "DejaVu Sans", Verdana, sans-serif; max-width: 1180px;
   margin: 1.5em auto; padding: 0 1em; color: #1a1a1a; line-height: 1.45; }
 h1 { font-size: 1.6em; margin-bottom: 0.2em; } h2 { margin-top: 1.8em; border-bottom: 1px solid #ccc; }
-table { border-collapse: collapse; margin: 0.6em 0 1.2em; font-size: 0.9em; }
+table { border-collapse: collapse; margin: 0.6em 0 1.2em; font-size: 0.9em; display: block;
+  overflow-x: auto; max-width: 100%; }
 th, td { padding: 0.2em 0.7em; text-align: right; border-bottom: 1px solid #e2e2e2; }
 th { border-bottom: 2px solid #888; background: #f5f5f5; }
 td.t, th.t { text-align: left; }
@@ -72,7 +72,7 @@ fn cell(v: &Value) -> (String, bool) {
 
 /// Keys shown first, in this order, when a table has them: what a row is about, then
 /// where on the grid; every other key follows in the order met.
-const LEADING: [&str; 15] = [
+const LEADING: [&str; 21] = [
     "folder",
     "experiment",
     "cmb_fields",
@@ -88,6 +88,12 @@ const LEADING: [&str; 15] = [
     "lmax",
     "kmax_h_mpc",
     "kmax_used_h_mpc",
+    "squeezed_share",
+    "equilateral_share",
+    "flattened_share",
+    "sn2_per_fnl2",
+    "sn2_per_fnl2_engine",
+    "cell_sum_over_engine",
 ];
 
 /// An HTML table of an array of JSON objects, skipping `skip` keys.
@@ -157,12 +163,38 @@ fn caveats(r: &RunResult, summary: &Value) -> Vec<String> {
     let sc = &r.scenario;
     let mut v = Vec::new();
     if !r.cmb.is_empty() {
-        v.push(format!("CMB: {} spectra in the covariance; the ISW-lensing bias of f_NL (lensing_bias) is reported beside sigma, not subtracted; foregrounds and masks enter only through f_sky.", sc.cmb_spectra.label()));
+        let spectra = match sc.cmb_spectra {
+            crate::cmb::lensing::CovarianceSpectra::Lensed if sc.delensing > 0.0 => format!(
+                "lensed spectra in the covariance with {}% of the lensing-potential power removed",
+                crate::report::format_sig(100.0 * sc.delensing, 3)
+            ),
+            crate::cmb::lensing::CovarianceSpectra::Lensed => {
+                "lensed spectra in the covariance".to_string()
+            }
+            crate::cmb::lensing::CovarianceSpectra::Unlensed => {
+                "unlensed spectra in the covariance (optimistic at high l)".to_string()
+            }
+        };
+        v.push(format!("CMB: {spectra}; Gaussian bispectrum covariance; the ISW-lensing bias of f_NL (lensing_bias) is reported beside sigma, not subtracted; foregrounds and masks enter only through f_sky."));
         v.push("Each CMB field stops at the experiment's own l_max: grid values above it repeat the capped result.".into());
+        v.push(format!(
+            "CMB information by configuration: summed over cells of multipoles at l_max = {} (at most {}); the table's cell_sum_over_engine column gives its agreement with the Fisher engine.",
+            r.cmb
+                .iter()
+                .find_map(|c| c.config_budget.as_ref().map(|b| b.lmax))
+                .unwrap_or(0),
+            crate::cmb::config_budget::BUDGET_LMAX
+        ));
+    }
+    for s in &r.surveys {
+        v.push(format!(
+            "{}: tree-level bispectrum; {}; the bispectrum uses the first tracer of each bin.",
+            s.survey.name,
+            s.survey.covariance.describe()
+        ));
     }
     if !r.surveys.is_empty() {
-        v.push("Survey: tree-level bispectrum with a Gaussian covariance; second-order non-Gaussian bias terms neglected; the bispectrum uses the first tracer of each bin.".into());
-        v.push("Power spectrum and bispectrum are combined without their cross-covariance (Gaussian level).".into());
+        v.push("Survey information by triangle class: from the Gaussian covariance with the nuisances fixed (with the realistic covariance and marginalized nuisances the information does not split by triangle).".into());
     }
     if r.surveys.iter().any(|s| s.survey.real_space) {
         v.push("At least one survey is in real space (no redshift-space distortions).".into());
@@ -194,16 +226,18 @@ Zaldarriaga 2006), from line-of-sight transfer functions; instrumental noise fol
 galaxy survey we combine the power spectrum, through the scale-dependent bias of Dalal et al. (2008) and \
 Slosar et al. (2008), with the tree-level galaxy bispectrum in redshift space with Gaussian covariance \
 (Scoccimarro, Sefusatti & Zaldarriaga 2004; Sefusatti et al. 2006), per redshift bin, marginalizing the \
-bias and shot-noise nuisances per bin; the power-spectrum Fisher information follows Tegmark (1997). The \
-CMB and survey Fisher matrices add. The fiducial cosmology is Planck 2018 base LCDM (Planck Collaboration \
+bias and shot-noise nuisances per bin; the power-spectrum Fisher information follows Tegmark (1997). With \
+the realistic covariance model we add a theoretical-error envelope for the tree-level models (Baldauf et \
+al. 2016) and the leading power spectrum-bispectrum cross-covariance. The CMB and survey Fisher matrices \
+add. We split the bispectrum information by triangle configuration (squeezed, equilateral, flattened: the \
+nearest corner of the plane of side ratios) per multipole or wavenumber triplet. The fiducial cosmology is Planck 2018 base LCDM (Planck Collaboration \
 VI 2020).";
 
 /// The run's page.
 pub fn run_page(
     r: &RunResult,
     summary: &Value,
-    artifacts: &[Artifact],
-    svgs: &[(String, String)],
+    svgs: &[(String, String, String)],
     tables: TableFormat,
 ) -> String {
     let sc = &r.scenario;
@@ -214,16 +248,12 @@ pub fn run_page(
         esc(crate::VERSION)
     ));
     s.push_str("<nav><a href=\"#headline\">Headline</a><a href=\"#crossover\">Crossover</a><a href=\"#figures\">Figures</a><a href=\"#bins\">Per bin</a><a href=\"#information\">Information</a><a href=\"#inputs\">Inputs</a><a href=\"#methods\">Methods</a></nav>\n");
-    s.push_str("<h2 id=\"headline\">Headline</h2>\n<p class=\"note\">sigma_cmb, sigma_survey, sigma_joint: single-shape (other f_NL fixed, survey nuisances marginalized); *_marginal: marginalized over the other shapes; CMB (T+E) at the largest l_max, surveys at the largest k_max; joint = CMB + survey Fisher matrices; improvement = best single probe / joint.</p>\n");
+    s.push_str("<h2 id=\"headline\">Headline</h2>\n<p class=\"note\">sigma_cmb, sigma_survey, sigma_joint: single-shape (the other f_NL fixed, nuisances marginalized); the *_marginal columns: marginalized over the other shapes. CMB (T+E) at the largest l_max, surveys at the largest k_max; joint = CMB + survey Fisher matrices; improvement = best single probe / joint.</p>\n");
     s.push_str(&json_table(array(summary, "rows"), &[]));
     s.push_str("<h2 id=\"crossover\">Crossover</h2>\n<p class=\"note\">The k_max at which the survey's single-shape sigma (other f_NL fixed, nuisances marginalized) falls below the CMB's (T+E at the experiment's l_max): kmax_h_mpc, below_grid; the same on sigmas marginalized over the other shapes: kmax_marginal_h_mpc, below_grid_marginal; null: not reached on the grid; below_grid: already below at the first grid point (a bound, not a found point).</p>\n");
     s.push_str(&json_table(array(summary, "crossover"), &[]));
     s.push_str("<h2 id=\"figures\">Figures</h2>\n");
-    for (stem, svg) in svgs {
-        let desc = artifacts
-            .iter()
-            .find(|a| &a.table.stem == stem)
-            .map_or("", |a| a.table.description.as_str());
+    for (stem, svg, desc) in svgs {
         let file = format!("{stem}.{}", tables.extension());
         s.push_str(&format!(
             "<figure id=\"{}\">\n{}\n<figcaption><b>{}</b>: {} (numbers: <a href=\"{}\">{}</a>; <a href=\"{}\">PNG</a>)</figcaption>\n</figure>\n",

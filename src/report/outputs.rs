@@ -352,7 +352,7 @@ pub fn write_outputs_with(r: &RunResult, dir: &Path, opts: &OutputOptions) -> Re
     let prov = provenance(r);
     let mut artifacts: Vec<Artifact> = crate::report::artifacts::all(r);
     artifacts.extend(crate::report::lensing_outputs::bias_tables(r));
-    let mut svgs: Vec<(String, String)> = Vec::new();
+    let mut svgs: Vec<(String, String, String)> = Vec::new();
     for a in &artifacts {
         let t = &a.table;
         put(
@@ -364,7 +364,7 @@ pub fn write_outputs_with(r: &RunResult, dir: &Path, opts: &OutputOptions) -> Re
             let svg = write_figure(fig, dir, &t.stem)?;
             written.push(format!("{}.png", t.stem));
             written.push(format!("{}.svg", t.stem));
-            svgs.push((t.stem.clone(), svg));
+            svgs.push((t.stem.clone(), svg, t.description.clone()));
         }
     }
     written.extend(crate::report::matrices::write_matrices(
@@ -372,7 +372,7 @@ pub fn write_outputs_with(r: &RunResult, dir: &Path, opts: &OutputOptions) -> Re
         dir,
         opts.tables,
     )?);
-    crate::report::tau_outputs::write_outputs(r, dir, &mut written)?;
+    crate::report::tau_outputs::write_outputs(r, dir, &mut written, &mut svgs)?;
     if sc.output.latex {
         put("table.tex", latex_table(r).as_bytes(), &mut written)?;
     }
@@ -390,7 +390,7 @@ pub fn write_outputs_with(r: &RunResult, dir: &Path, opts: &OutputOptions) -> Re
     let text = serde_json::to_string_pretty(&sidecar).unwrap_or_default() + "\n";
     put("tables.json", text.as_bytes(), &mut written)?;
     if opts.report {
-        let page = crate::report::html::run_page(r, &summary, &artifacts, &svgs, opts.tables);
+        let page = crate::report::html::run_page(r, &summary, &svgs, opts.tables);
         put("report.html", page.as_bytes(), &mut written)?;
     }
     Ok(written)

@@ -149,7 +149,15 @@ pub fn summary_block(r: &RunResult) -> Value {
 ///
 /// # Errors
 /// I/O and drawing errors.
-pub fn write_outputs(r: &RunResult, dir: &Path, written: &mut Vec<String>) -> Result<()> {
+///
+/// Each figure written is added to `figures` as (stem, SVG text, caption) for the report
+/// page.
+pub fn write_outputs(
+    r: &RunResult,
+    dir: &Path,
+    written: &mut Vec<String>,
+    figures: &mut Vec<(String, String, String)>,
+) -> Result<()> {
     let sc = &r.scenario;
     if !sc.tau_nl {
         return Ok(());
@@ -159,7 +167,7 @@ pub fn write_outputs(r: &RunResult, dir: &Path, written: &mut Vec<String>) -> Re
         written.push(name.to_string());
         Ok(())
     };
-    let mut figs: Vec<(String, Figure)> = Vec::new();
+    let mut figs: Vec<(String, Figure, String)> = Vec::new();
     // sigma(tau_NL) versus k_max: survey P with the CMB band (T+E to T).
     let mut series = Vec::new();
     let mut rows = Vec::new();
@@ -216,6 +224,10 @@ pub fn write_outputs(r: &RunResult, dir: &Path, written: &mut Vec<String>) -> Re
             fmt_value(hi),
         ]);
     }
+    let free = crate::report::figures::band_colours(&series, bands.len());
+    for (b, c) in bands.iter_mut().zip(free) {
+        b.colour = c;
+    }
     let stem = format!("sigma_vs_kmax_{}", slug(TAU_NL));
     put(
         &format!("{stem}.csv"),
@@ -238,6 +250,7 @@ pub fn write_outputs(r: &RunResult, dir: &Path, written: &mut Vec<String>) -> Re
                 series,
                 bands,
             }),
+            "sigma(tau_NL) versus k_max: each survey's power spectra (marginalized over f_NL local, Gaussian covariance) with each CMB experiment's collapsed-trispectrum sigma at its largest l_max as a band from T+E to T".into(),
         ));
     }
     // sigma(tau_NL) versus l_max with the log slope, per experiment.
@@ -311,13 +324,18 @@ pub fn write_outputs(r: &RunResult, dir: &Path, written: &mut Vec<String>) -> Re
                     bands: vec![],
                 },
             ),
+            format!(
+                "{}: sigma(tau_NL) from the collapsed CMB trispectrum versus l_max per field set, with the log slope d ln F / d ln l_max",
+                c.experiment.name
+            ),
         ));
     }
     if sc.output.figures {
-        for (stem, fig) in figs {
-            write_figure(&fig, dir, &stem)?;
+        for (stem, fig, caption) in figs {
+            let svg = write_figure(&fig, dir, &stem)?;
             written.push(format!("{stem}.png"));
             written.push(format!("{stem}.svg"));
+            figures.push((stem, svg, caption));
         }
     }
     Ok(())

@@ -17,6 +17,7 @@ pub mod power;
 pub mod response;
 pub mod spec;
 pub mod tau_nl;
+pub mod triangle_budget;
 pub mod triangles;
 
 pub use covariance::CovarianceModel;

@@ -6,7 +6,7 @@ use super::*;
 
 /// Key points of a colour bar over [a, b]: the log key points plus both ends (rounded
 /// inward to two significant digits), so the labels span the whole range.
-fn bar_keys(a: f64, b: f64) -> Vec<f64> {
+pub(super) fn bar_keys(a: f64, b: f64) -> Vec<f64> {
     let (lo, hi) = (a.min(b), a.max(b));
     if !(lo > 0.0 && hi.is_finite()) {
         return Vec::new();
@@ -49,7 +49,7 @@ fn edges(c: &[f64]) -> Vec<f64> {
     e
 }
 
-fn ramp(t: f64) -> RGBColor {
+pub(super) fn ramp(t: f64) -> RGBColor {
     // A perceptually ordered blue -> green -> yellow ramp of our own (light = small).
     let t = t.clamp(0.0, 1.0);
     let stops = [
