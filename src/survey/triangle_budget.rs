@@ -242,6 +242,7 @@ mod tests {
             bs2: false,
             p_shot: false,
             b_shot: false,
+            b_shot_p: false,
         };
         let st = SurveySettings::default();
         let kmax = 0.12;
