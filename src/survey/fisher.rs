@@ -219,6 +219,24 @@ pub fn survey_fisher(
     }
 }
 
+/// The non-Gaussian bias response of one tracer in one bin, with the survey's response
+/// model (full shape or the squeezed form cut at k_S). Shared by the engine and the
+/// per-triangle information budget so that both use the same response.
+pub(crate) fn tracer_response(
+    survey: &Survey,
+    table: &SigmaTable,
+    power: &LinearPower,
+    shapes: &[ShapeInput],
+    b: &crate::survey::spec::TracerBin,
+    z: f64,
+) -> TracerResponse {
+    let r = TracerResponse::new(table, power, shapes, b.b1, b.b2, b.b_phi, z);
+    match survey.response {
+        crate::survey::ResponseModel::FullShape => r.with_full_shape(table, power, shapes, b.b1, z),
+        crate::survey::ResponseModel::SqueezedCut => r,
+    }
+}
+
 #[allow(clippy::too_many_arguments)] // one bin of the engine needs all of these
 fn bin_fisher(
     table: &SigmaTable<'_>,
@@ -252,16 +270,7 @@ fn bin_fisher(
     let responses: Vec<TracerResponse> = survey
         .tracers
         .iter()
-        .map(|t| {
-            let b = t.bins[ib];
-            let r = TracerResponse::new(table, power, shapes, b.b1, b.b2, b.b_phi, z);
-            match survey.response {
-                crate::survey::ResponseModel::FullShape => {
-                    r.with_full_shape(table, power, shapes, b.b1, z)
-                }
-                crate::survey::ResponseModel::SqueezedCut => r,
-            }
-        })
+        .map(|t| tracer_response(survey, table, power, shapes, &t.bins[ib], z))
         .collect();
     let ptracers: Vec<PowerTracer> = survey
         .tracers

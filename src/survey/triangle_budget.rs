@@ -16,7 +16,7 @@ use crate::survey::bispectrum::BispectrumBin;
 use crate::survey::fisher::SurveySettings;
 use crate::survey::kernels::{BispectrumModel, BispectrumTracer};
 use crate::survey::layout::Layout;
-use crate::survey::response::{ShapeInput, SigmaTable, TracerResponse};
+use crate::survey::response::{ShapeInput, SigmaTable};
 use crate::survey::spec::Survey;
 use crate::survey::triangles::{TriPoint, TriRow, triangle_rows};
 use crate::triangle_class::{
@@ -72,7 +72,8 @@ pub fn triangle_information(
         let sig_r = crate::constants::C_KM_S * survey.redshift_error * (1.0 + z) / hz;
         let sig_v = survey.velocity_dispersion_km_s * (1.0 + z) / hz;
         let t0 = survey.tracers[0].bins[ib];
-        let response = TracerResponse::new(&table, power, shapes, t0.b1, t0.b2, t0.b_phi, z);
+        let response =
+            crate::survey::fisher::tracer_response(survey, &table, power, shapes, &t0, z);
         let lay = Layout {
             n_shapes: ns,
             n_tracers: survey.tracers.len(),
