@@ -19,7 +19,7 @@ pub fn terminal_summary(r: &RunResult) -> String {
     let head = headline_probe(&sc.probes);
     out.push_str(&format!("ngreach {}: {}\n", crate::VERSION, sc.name));
     out.push_str(&format!(
-        "sigma(f_NL): each shape's first line single-shape (other f_NL fixed, nuisances marginalized),\nits `marg.` line marginalized over the other shapes; k_x: k_max where the survey's {} beats the CMB on the same basis\nCMB: T+E at l_max = {}; surveys at k_max = {} h/Mpc (see each survey's line for its meaning and the per-bin table for each bin's value)\n",
+        "sigma(f_NL) per shape: first line single-shape (other f_NL fixed, nuisances marginalized),\n`marg.` line marginalized over the other shapes; k_x: survey {} beats the CMB (same basis)\nCMB: T+E at l_max = {}; surveys at k_max = {} h/Mpc (see each survey's line for its meaning and the per-bin table for each bin's value)\n",
         head.map_or("-", |p| p.label()),
         sc.lmax.last().copied().unwrap_or(0),
         format_sig(kx, 3)

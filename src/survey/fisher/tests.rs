@@ -116,6 +116,8 @@ fn bispectrum_matches_brute_force() {
     let shapes = [local(s.prim)];
     let mut sv = quick(3e-4, 2.0, true);
     sv.bins[0].volume_mpc3 = 1e9;
+    // The oracle writes Delta b in its squeezed form.
+    sv.response = crate::survey::ResponseModel::SqueezedCut;
     sv.nuisance = NuisanceSwitches {
         b1: false,
         b2: false,
@@ -279,7 +281,10 @@ fn fisher_is_psd_and_marginal_exceeds_conditional() {
             ..local(s.prim)
         },
     ];
-    let sv = Survey::quick(5.0, 0.8, 5e-4, 1.8, false, 0.6736).unwrap();
+    // The second shape is synthetic (local bispectrum, squeezed index 0.5): only the
+    // squeezed-cut response reads its index.
+    let mut sv = Survey::quick(5.0, 0.8, 5e-4, 1.8, false, 0.6736).unwrap();
+    sv.response = crate::survey::ResponseModel::SqueezedCut;
     let fc = survey_fisher(
         &sv,
         &s.power,
@@ -288,6 +293,22 @@ fn fisher_is_psd_and_marginal_exceeds_conditional() {
         &[0.05, 0.1],
         &SurveySettings::default(),
     );
+    // The full-shape response with the local shape alone: more k, more information.
+    sv.response = crate::survey::ResponseModel::FullShape;
+    let full = survey_fisher(
+        &sv,
+        &s.power,
+        &s.bg,
+        &shapes[..1],
+        &[0.05, 0.1],
+        &SurveySettings::default(),
+    );
+    for p in 0..3 {
+        assert!(
+            full.total[1][p].get(0, 0) > full.total[0][p].get(0, 0),
+            "probe {p}"
+        );
+    }
     for per_k in &fc.total {
         for f in per_k {
             assert!(f.is_symmetric_psd(1e-9));
