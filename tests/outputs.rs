@@ -192,7 +192,12 @@ fn csv_tables_npy_matrices_and_the_sidecar() {
     };
     for prefix in ["information_by_configuration_", "information_by_class_"] {
         let t = table(prefix);
-        assert!(t["description"].as_str().unwrap().contains("nearest corner"));
+        assert!(
+            t["description"]
+                .as_str()
+                .unwrap()
+                .contains("nearest corner")
+        );
         for r in t["rows"].as_array().unwrap() {
             let s: f64 = ["squeezed_share", "equilateral_share", "flattened_share"]
                 .iter()
@@ -208,7 +213,10 @@ fn csv_tables_npy_matrices_and_the_sidecar() {
                 assert!(r["squeezed_share"].as_f64().unwrap() > 0.5, "{r}");
             }
         }
-        assert!(out.join(format!("{}.svg", t["table"].as_str().unwrap())).is_file());
+        assert!(
+            out.join(format!("{}.svg", t["table"].as_str().unwrap()))
+                .is_file()
+        );
     }
     std::fs::remove_dir_all(&out).ok();
 }
@@ -224,7 +232,10 @@ fn tau_nl_figures_are_in_the_page() {
         .match_indices("<figure id=\"sigma_vs_lmax_")
         .filter(|(i, _)| html[*i..].split('>').next().unwrap().ends_with("_tau_nl\""))
         .count();
-    assert_eq!(lmax_tau, 1, "one sigma(tau_NL) versus l_max figure per experiment");
+    assert_eq!(
+        lmax_tau, 1,
+        "one sigma(tau_NL) versus l_max figure per experiment"
+    );
     assert!(html.contains("collapsed CMB trispectrum"));
     std::fs::remove_dir_all(&out).ok();
 }
