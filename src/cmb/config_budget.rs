@@ -107,65 +107,48 @@ pub fn geometric_weights(grid: &LGrid, lmax: usize, parallel: bool) -> Vec<[f64;
     }
     let w3j = Wigner000::new(top as u32);
     let four_pi = 4.0 * std::f64::consts::PI;
-    let sweep = |l1: usize, w: &mut Vec<[f64; 4]>| {
-        let c1 = cell_of[l1];
-        for l2 in l1..=top {
-            let c2 = cell_of[l2];
-            let a12 = ((2 * l1 + 1) * (2 * l2 + 1)) as f64 / four_pi;
-            // l3 from l2 with l1 + l2 + l3 even, up to the triangle limit.
-            let start = l2 + (l1 % 2);
-            let end = (l1 + l2).min(top);
-            let mut l3 = start;
-            while l3 <= end {
-                let g2 = a12 * (2 * l3 + 1) as f64 * w3j.squared(l1 as u32, l2 as u32, l3 as u32);
-                let mult = if l1 == l2 && l2 == l3 {
-                    1.0
-                } else if l1 == l2 || l2 == l3 {
-                    3.0
-                } else {
-                    6.0
-                };
-                let e = &mut w[(c1 * n + c2) * n + cell_of[l3]];
-                let m = mult * g2;
-                e[0] += m;
-                e[1] += m * l1 as f64;
-                e[2] += m * l2 as f64;
-                e[3] += m * l3 as f64;
-                l3 += 2;
+    // One task per cell of the smallest multipole: it writes only the block W[c1][..][..],
+    // summing its l1 in order, so the result does not depend on the thread count.
+    let block = |c1: usize| -> Vec<[f64; 4]> {
+        let mut w = vec![[0.0; 4]; n * n];
+        for l1 in grid.edges[c1].max(lo)..grid.edges[c1 + 1].min(top + 1) {
+            for l2 in l1..=top {
+                let c2 = cell_of[l2];
+                let a12 = ((2 * l1 + 1) * (2 * l2 + 1)) as f64 / four_pi;
+                // l3 from l2 with l1 + l2 + l3 even, up to the triangle limit.
+                let end = (l1 + l2).min(top);
+                let mut l3 = l2 + (l1 % 2);
+                while l3 <= end {
+                    let g2 =
+                        a12 * (2 * l3 + 1) as f64 * w3j.squared(l1 as u32, l2 as u32, l3 as u32);
+                    let mult = if l1 == l2 && l2 == l3 {
+                        1.0
+                    } else if l1 == l2 || l2 == l3 {
+                        3.0
+                    } else {
+                        6.0
+                    };
+                    let e = &mut w[c2 * n + cell_of[l3]];
+                    let m = mult * g2;
+                    e[0] += m;
+                    e[1] += m * l1 as f64;
+                    e[2] += m * l2 as f64;
+                    e[3] += m * l3 as f64;
+                    l3 += 2;
+                }
             }
         }
+        w
     };
     if top < lo {
         return vec![[0.0; 4]; n * n * n];
     }
-    if parallel {
-        (lo..=top)
-            .into_par_iter()
-            .fold(
-                || vec![[0.0; 4]; n * n * n],
-                |mut w, l1| {
-                    sweep(l1, &mut w);
-                    w
-                },
-            )
-            .reduce(
-                || vec![[0.0; 4]; n * n * n],
-                |mut a, b| {
-                    for (x, y) in a.iter_mut().zip(b) {
-                        for q in 0..4 {
-                            x[q] += y[q];
-                        }
-                    }
-                    a
-                },
-            )
+    let blocks: Vec<Vec<[f64; 4]>> = if parallel {
+        (0..n).into_par_iter().map(block).collect()
     } else {
-        let mut w = vec![[0.0; 4]; n * n * n];
-        for l1 in lo..=top {
-            sweep(l1, &mut w);
-        }
-        w
-    }
+        (0..n).map(block).collect()
+    };
+    blocks.into_iter().flatten().collect()
 }
 
 /// The G^2-weighted centre of a cell triple (nearest multipoles), from its entry of
