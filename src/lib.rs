@@ -18,7 +18,7 @@
 //! - tau_NL as in Suyama & Yamaguchi 2008: a single local source gives
 //!   tau_NL = (6 f_NL / 5)^2 ([`cmb::collapsed`], [`survey::tau_nl`]).
 
-#![deny(unsafe_code)] // one audited exception: the dgemm call in numerics::gemm
+#![deny(unsafe_code)] // audited exceptions: numerics::gemm (dgemm), cmb::bispectrum::simd
 #![warn(missing_docs)]
 
 pub mod batch;

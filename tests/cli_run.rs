@@ -16,6 +16,7 @@ fn tmp(name: &str) -> PathBuf {
 
 fn run_small(out: &Path, threads: &str) -> serde_json::Value {
     let o = Command::new(bin())
+        .env("NGREACH_CACHE_DIR", test_cache_dir())
         .args([
             "run",
             "tests/data/scenario_small.toml",
@@ -369,6 +370,7 @@ fn array_job_shards_and_merge_expect() {
     );
     for (id, dir) in [("1", &t1), ("2", &t2)] {
         let o = Command::new(bin())
+            .env("NGREACH_CACHE_DIR", test_cache_dir())
             .args([
                 "batch",
                 "tests/data/plan_small.toml",
@@ -419,6 +421,7 @@ fn array_job_shards_and_merge_expect() {
     );
     // Outside an array job, `auto` names the variables it needs.
     let o = Command::new(bin())
+        .env("NGREACH_CACHE_DIR", test_cache_dir())
         .args([
             "batch",
             "tests/data/plan_small.toml",

@@ -27,6 +27,7 @@ fn run_reports_tau_nl_rows_figures_and_joint() {
     let out = std::env::temp_dir().join(format!("ngreach-taunl-{}", std::process::id()));
     let _ = std::fs::remove_dir_all(&out);
     let o = Command::new(bin())
+        .env("NGREACH_CACHE_DIR", test_cache_dir())
         .args([
             "run",
             "tests/data/scenario_tau_nl.toml",

@@ -5,7 +5,7 @@ mod common;
 
 use std::collections::HashMap;
 
-use common::run_json;
+use common::{run_json, test_cache_dir};
 use ngreach::cmb::bispectrum::{
     BispectrumPlan, CmbFisherInput, EngineOptions, FieldSet, cmb_fisher_with_options,
 };
@@ -57,7 +57,6 @@ fn planck_2018_like_errors_with_the_full_transfer() {
         "tests/data/cmb_planck2018_like.toml",
         "--transfer",
         "full",
-        "--no-cache",
         "--lmax",
         "2000,2500",
         "--fields",
@@ -150,7 +149,6 @@ fn adding_e_raises_the_equilateral_slope() {
         "--ideal",
         "--transfer",
         "full",
-        "--no-cache",
         "--spectra",
         "unlensed",
         "--lmax",
@@ -172,23 +170,39 @@ fn adding_e_raises_the_equilateral_slope() {
     }
 }
 
-/// The engine's fast paths on the full transfer to l_max = 1500: the low/high-l split is
+/// The engine's fast paths on the full transfer to l_max = 1000: the low/high-l split is
 /// exact (equal to rounding with the same blocks), and the default compression moves
 /// sigma(f_NL) by < 1e-5 relative against a 100 times tighter compression for
 /// l_max >= 300. (The exact form, tolerance 0, equals the brute-force triple sum in the
-/// module's tests; at this l_max it would take minutes.)
+/// module's tests; at this l_max it would take minutes.) The same check to l_max = 1500
+/// is an extended check (`split_and_compression_to_1500`, ignored by default).
 #[test]
 fn split_is_exact_and_compression_is_within_tolerance() {
-    let lmax = 1500;
+    split_and_compression(1000, &[100, 300, 600, 1000]);
+}
+
+/// Extended check (`cargo test --release --test cmb_engine -- --ignored`): as
+/// [`split_is_exact_and_compression_is_within_tolerance`] to l_max = 1500.
+#[test]
+#[ignore = "extended check: run with --ignored"]
+fn split_and_compression_to_1500() {
+    split_and_compression(1500, &[100, 300, 600, 1000, 1500]);
+}
+
+fn split_and_compression(lmax: usize, grid: &[usize]) {
     let c = Cosmology::planck2018();
     let bg = Background::new(&c);
     let th = ThermalHistory::new(&c, &bg).expect("thermal");
-    let (table, radial, _) =
-        ngreach::cmb::full_transfer_for(&c, &th, &bg, lmax, &CacheOptions::disabled())
-            .expect("full transfer");
+    let (table, radial, _) = ngreach::cmb::full_transfer_for(
+        &c,
+        &th,
+        &bg,
+        lmax,
+        &CacheOptions::in_dir(test_cache_dir()),
+    )
+    .expect("full transfer");
     let shapes = [Shape::Local, Shape::Equilateral, Shape::Orthogonal];
     let exp = Experiment::ideal(lmax);
-    let grid = [100, 300, 600, 1000, 1500];
     let fsets = [FieldSet::T, FieldSet::TE];
     let plan = BispectrumPlan::new(&CmbFisherInput {
         transfer: &table,
@@ -196,14 +210,14 @@ fn split_is_exact_and_compression_is_within_tolerance() {
         shapes: &shapes,
         experiment: &exp,
         t_cmb_k: c.params().t_cmb_k,
-        lmax_grid: &grid,
+        lmax_grid: grid,
         field_sets: &fsets,
         radial: &radial,
         parallel: true,
         signal_cl: None,
     });
     let run = |tol: f64, split: bool| {
-        cmb_fisher_with_options(&plan, &grid, true, &EngineOptions { tol, split })
+        cmb_fisher_with_options(&plan, grid, true, &EngineOptions { tol, split })
     };
     let tol = EngineOptions::default().tol;
     let exact = run(tol, false);

@@ -14,11 +14,23 @@ pub fn root() -> &'static Path {
     Path::new(env!("CARGO_MANIFEST_DIR"))
 }
 
-/// Runs the binary with arguments.
+/// The transfer-table cache shared by the tests (and by test runs): a fixed folder
+/// under target/. Entries are keyed by the cosmology, the solver settings and the solver
+/// version, so a table is reused only for identical inputs; tests that check the cache
+/// itself use folders of their own.
+pub fn test_cache_dir() -> PathBuf {
+    let d = root().join("target").join("test-cache");
+    let _ = std::fs::create_dir_all(&d);
+    d
+}
+
+/// Runs the binary with arguments, with the shared test cache as the default cache
+/// (`NGREACH_CACHE_DIR`; `--cache-dir` and `--no-cache` still win).
 pub fn run(args: &[&str]) -> Output {
     Command::new(bin())
         .args(args)
         .current_dir(root())
+        .env("NGREACH_CACHE_DIR", test_cache_dir())
         .output()
         .expect("binary runs")
 }
