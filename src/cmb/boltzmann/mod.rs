@@ -147,6 +147,7 @@
 //! [`cached_transfer`] stores tables in a binary file format of its own with a header,
 //! length and FNV-1a checksum, keyed by a hash of the parameters (module `cache`).
 
+mod bessel_sum;
 mod cache;
 mod dopri;
 mod equations;
