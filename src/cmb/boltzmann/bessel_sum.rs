@@ -49,7 +49,7 @@ impl Lanes {
 
     /// Accumulates the group into the per-lane rows `acc_t`, `acc_e` (layout
     /// [l * LANES + lane], l = 0..=lmax; rows l < 2 untouched) and empties it. `rat` is
-    /// scratch of at least (lmax + 2) * LANES values.
+    /// scratch of at least 2 (lmax + 2) * LANES values.
     pub fn run(&mut self, lmax: usize, acc_t: &mut [f64], acc_e: &mut [f64], rat: &mut [f64]) {
         if self.len == 0 {
             return;
@@ -157,14 +157,18 @@ fn run_lanes<const F: bool>(
     if l > acc_end {
         return;
     }
-    // Phase 2: ratios r_m for m = l_common + 1 ..= acc_end + 1, stored at
-    // rat[(m - l_common - 1) * LANES + g], from the downward recurrence started well above
-    // every lane's l_cut.
+    // Phase 2: from l on, j_{l+1} = a_m j_l - b_m j_{l-1} (m = l + 1) with, per lane,
+    // a_m = (2l + 1)/x, b_m = 1 below the turning point (m <= up) and a_m = r_m, b_m = 0
+    // above it, where r_m = j_m / j_{m-1} comes from the downward recurrence started well
+    // above every lane's l_cut. Stored for m = l_common + 1 ..= acc_end + 1 at
+    // rat[2 (m - l_common - 1) LANES + g] (a) and the next LANES values (b).
     let m_lo = l_common + 1;
     let m_hi = acc_end + 1;
     let start = top + 16;
+    let mut upf = [0.0; LANES];
     let mut r = [0.0; LANES];
     for g in 0..LANES {
+        upf[g] = up[g] as f64;
         r[g] = lanes.x[g] / (2.0 * start as f64 + 3.0);
     }
     for m in (m_hi + 1..=start).rev() {
@@ -174,27 +178,25 @@ fn run_lanes<const F: bool>(
         }
     }
     for m in (m_lo..=m_hi).rev() {
-        let tm = (2 * m + 1) as f64;
-        let slot = &mut rat[(m - m_lo) * LANES..(m - m_lo + 1) * LANES];
+        let mf = m as f64;
+        let tm = 2.0 * mf + 1.0;
+        let o = 2 * (m - m_lo) * LANES;
+        let (sa, sb) = rat[o..o + 2 * LANES].split_at_mut(LANES);
         for g in 0..LANES {
             r[g] = lanes.x[g] / (tm - lanes.x[g] * r[g]);
-            slot[g] = r[g];
+            let below = mf <= upf[g];
+            sa[g] = if below { (tm - 2.0) * ix[g] } else { r[g] };
+            sb[g] = if below { 1.0 } else { 0.0 };
         }
     }
-    // Then every row from l on, each lane taking j_{l+1} from the upward recurrence
-    // below its turning point and from the ratio above.
     while l <= acc_end {
         let lf = l as f64;
-        let tl = 2.0 * lf + 1.0;
         let ll1 = lf * (lf - 1.0);
-        let rr = &rat[(l + 1 - m_lo) * LANES..(l + 2 - m_lo) * LANES];
+        let o = 2 * (l + 1 - m_lo) * LANES;
+        let (ra, rb) = rat[o..o + 2 * LANES].split_at(LANES);
         let mut jp = [0.0; LANES];
         for g in 0..LANES {
-            jp[g] = if l < up[g] {
-                madd::<F>(tl * ix[g], jc[g], -jm[g])
-            } else {
-                rr[g] * jc[g]
-            };
+            jp[g] = madd::<F>(ra[g], jc[g], -(rb[g] * jm[g]));
         }
         if l >= 2 {
             let at = &mut acc_t[l * LANES..(l + 1) * LANES];
@@ -231,7 +233,7 @@ mod tests {
         for xs in cases {
             let mut acc_t = vec![0.0; (lmax + 1) * LANES];
             let mut acc_e = vec![0.0; (lmax + 1) * LANES];
-            let mut rat = vec![0.0; (lmax + 2) * LANES];
+            let mut rat = vec![0.0; 2 * (lmax + 2) * LANES];
             let mut lanes = Lanes::default();
             for (i, &x) in xs.iter().enumerate() {
                 let w = (i + 1) as f64;

@@ -87,7 +87,7 @@ impl Projection<'_> {
             buf: vec![0.0; 4 * nn],
             acc_t: vec![0.0; nl * LANES],
             acc_e: vec![0.0; nl * LANES],
-            rat: vec![0.0; (nl + 1) * LANES],
+            rat: vec![0.0; 2 * (nl + 1) * LANES],
         };
         let one = |s: &mut Scratch, (ik, (tr, er)): (usize, (&mut [f64], &mut [f64]))| {
             let k = ks[ik];
