@@ -138,14 +138,24 @@ fn run_lanes<const F: bool>(
         let p1_end = (l_common - 1).min(acc_end);
         let rows_t = acc_t[2 * LANES..(p1_end + 1) * LANES].chunks_exact_mut(LANES);
         let rows_e = acc_e[2 * LANES..(p1_end + 1) * LANES].chunks_exact_mut(LANES);
+        // The quadratic ca + l cb + l(l-1) cc by forward differences (additions, which
+        // run beside the multiply-adds): p at l = 2, its difference d = cb + 2 l cc.
+        let mut p = [0.0; LANES];
+        let mut d = [0.0; LANES];
+        let mut cc2 = [0.0; LANES];
+        for g in 0..LANES {
+            p[g] = ca[g] + 2.0 * cb[g] + 2.0 * cc[g];
+            d[g] = cb[g] + 4.0 * cc[g];
+            cc2[g] = 2.0 * cc[g];
+        }
         for (at, ae) in rows_t.zip(rows_e) {
-            let lf = l as f64;
-            let tl = 2.0 * lf + 1.0;
-            let ll1 = lf * (lf - 1.0);
+            let tl = (2 * l + 1) as f64;
             for g in 0..LANES {
                 let j = jc[g];
                 let jp = madd::<F>(tl * ix[g], j, -jm[g]);
-                let poly = madd::<F>(ll1, cc[g], madd::<F>(lf, cb[g], ca[g]));
+                let poly = p[g];
+                p[g] += d[g];
+                d[g] += cc2[g];
                 at[g] = madd::<F>(jp, cd[g], madd::<F>(j, poly, at[g]));
                 ae[g] = madd::<F>(j, ce[g], ae[g]);
                 jm[g] = j;

@@ -121,11 +121,18 @@ impl Projection<'_> {
             }
         };
         if parallel {
-            t.par_chunks_mut(nl)
-                .zip(e.par_chunks_mut(nl))
+            // Blocks of consecutive k, each with one scratch (a scratch per rayon job
+            // would be allocated, page-faulted and freed thousands of times).
+            let block = ks.len().div_ceil(16 * rayon::current_num_threads()).max(1);
+            t.par_chunks_mut(nl * block)
+                .zip(e.par_chunks_mut(nl * block))
                 .enumerate()
-                .with_max_len(4)
-                .for_each_init(init, one);
+                .for_each_init(init, |s, (ib, (tb, eb))| {
+                    let rows = tb.chunks_mut(nl).zip(eb.chunks_mut(nl));
+                    for (j, r) in rows.enumerate() {
+                        one(s, (ib * block + j, r));
+                    }
+                });
         } else {
             let mut scratch = init();
             for r in t.chunks_mut(nl).zip(e.chunks_mut(nl)).enumerate() {
