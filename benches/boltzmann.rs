@@ -12,7 +12,8 @@
 //! - `NGREACH_BENCH_REPEATS`: repeats of the chain (default 3; the best is quoted).
 //! - `NGREACH_BENCH_LMAX`: l_max (default 3000).
 //!
-//! The last line, `boltzmann-bench total_s=... reference_s=... ratio=...`, is for scripts.
+//! The last line, `boltzmann-bench total_s=... cpu_s=... reference_s=... ratio=...` (the best
+//! run's wall and CPU seconds), is for scripts.
 
 use std::time::Instant;
 
@@ -165,5 +166,8 @@ fn main() {
         Some(r) if r > 0.0 => (format!("{r:.4}"), format!("{:.4}", total / r)),
         _ => ("none".to_string(), "none".to_string()),
     };
-    println!("boltzmann-bench total_s={total:.4} reference_s={rs} ratio={ratio}");
+    println!(
+        "boltzmann-bench total_s={total:.4} cpu_s={:.4} reference_s={rs} ratio={ratio}",
+        best.cpu
+    );
 }

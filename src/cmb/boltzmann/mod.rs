@@ -142,7 +142,7 @@
 //! <= 0.14% at 2000 < l <= 3000; TE within 0.13% of sqrt(TT EE); T(k) within 0.11% for
 //! 1e-4 < k < 1 h/Mpc. With camb's x_e in the opacity instead of our thermal history
 //! the solver matches camb to 0.19% at 30 <= l <= 2500. Precision 2 changes C_l
-//! by at most 0.09% (TT), 0.07% (EE) and 0.11% of sqrt(TT EE) (TE) (the ignored
+//! by at most 0.09% (TT), 0.07% (EE) and 0.12% of sqrt(TT EE) (TE) (the
 //! convergence test in tests/boltzmann.rs). The Weyl potential for CMB lensing comes from
 //! the same modes ([`BoltzmannSolver::weyl_table`], module `weyl`).
 //!
