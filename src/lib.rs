@@ -18,7 +18,9 @@
 //! - tau_NL as in Suyama & Yamaguchi 2008: a single local source gives
 //!   tau_NL = (6 f_NL / 5)^2 ([`cmb::collapsed`], [`survey::tau_nl`]).
 
-#![deny(unsafe_code)] // audited exceptions: numerics::gemm (dgemm), cmb::bispectrum::simd
+#![deny(unsafe_code)]
+// audited exceptions: the dgemm call in numerics::gemm, the AVX2/FMA dispatch in
+// cmb::bispectrum::simd and in cmb::boltzmann::bessel_sum
 #![warn(missing_docs)]
 
 pub mod batch;

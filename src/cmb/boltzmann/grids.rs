@@ -66,7 +66,7 @@ impl Plan {
         Self {
             rtol: 1e-5 / p.powi(2),
             atol: 1e-9 / p.powi(2),
-            eps_tca: 0.01 / p,
+            eps_tca: 0.02 / p,
             k_eta_rsa: 45.0 * p,
             // Shorter hierarchies move C_l^EE at l ~ 2400 by 0.1% (measured).
             l_nu: 12 + 8 * precision as usize,

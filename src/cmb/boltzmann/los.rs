@@ -9,23 +9,31 @@
 //! with j_l' = (l/x) j_l - j_{l+1} and j_l'' from the Bessel equation, so that
 //! (j_l + 3 j_l'')/2 = (3 l (l-1) / (2 x^2) - 1) j_l + (3/x) j_{l+1}. Two routes:
 //!
-//! - every l: at each (k, eta) node all j_l(x) for l <= l_cut(x) come from one call of
-//!   [`sph_bessel_all_l`] (upward/downward recurrences), with
+//! - every l: at each (k, eta) node all j_l(x) for l <= l_cut(x) by recurrences, with
 //!   l_cut(x) = x + 6.5 x^(1/3) + 10, beyond which j_l(x) < ~1e-6 of its maximum (Airy
-//!   decay past the turning point). Where x > l_max + 1 every needed l lies below the
-//!   turning point, and the upward recurrence from the exact j_0, j_1 (the same that
-//!   [`sph_bessel_all_l`] uses there) runs for four nodes side by side, fused with the
-//!   accumulation (about 70% of the work at l_max = 3000);
+//!   decay past the turning point): upward from the exact j_0, j_1 below the turning
+//!   point, downward ratios above it (the scheme of [`sph_bessel_all_l`]). Eight nodes run
+//!   side by side, fused with the accumulation into the rows (module `bessel_sum`), so no
+//!   table of j_l is written;
 //! - sampled l: j_l and j_{l+1} of each sampled l from quintic Hermite tables on a uniform
 //!   x grid (values and first two derivatives at the nodes).
 
 use rayon::prelude::*;
 
+use super::bessel_sum::{LANES, Lanes};
 use super::grids::{Nodes, Plan, taper};
 use super::modes::SourceTable;
 use crate::special::sph_bessel_all_l;
 
 pub(crate) use crate::special::bessel::l_cut;
+
+/// Per-worker scratch of the every-l projection.
+struct Scratch {
+    buf: Vec<f64>,
+    acc_t: Vec<f64>,
+    acc_e: Vec<f64>,
+    rat: Vec<f64>,
+}
 
 /// What the projection of one k needs.
 pub(crate) struct Projection<'a> {
@@ -64,8 +72,6 @@ impl Projection<'_> {
         let nl = lmax + 1;
         let mut t = vec![0.0; ks.len() * nl];
         let mut e = vec![0.0; ks.len() * nl];
-        let lf: Vec<f64> = (0..nl).map(|l| l as f64).collect();
-        let ll1: Vec<f64> = (0..nl).map(|l| (l * l.saturating_sub(1)) as f64).collect();
         let enorm: Vec<f64> = (0..nl)
             .map(|l| {
                 let l = l as f64;
@@ -77,22 +83,25 @@ impl Projection<'_> {
             })
             .collect();
         let nn = self.nodes.len();
-        let init = || (vec![0.0; 4 * nn], vec![0.0; nl + 2]);
-        let one = |(buf, jl): &mut (Vec<f64>, Vec<f64>),
-                   (ik, (tr, er)): (usize, (&mut [f64], &mut [f64]))| {
+        let init = || Scratch {
+            buf: vec![0.0; 4 * nn],
+            acc_t: vec![0.0; nl * LANES],
+            acc_e: vec![0.0; nl * LANES],
+            rat: vec![0.0; 2 * (nl + 1) * LANES],
+        };
+        let one = |s: &mut Scratch, (ik, (tr, er)): (usize, (&mut [f64], &mut [f64]))| {
             let k = ks[ik];
-            let n = self.weighted_sources(k, buf);
-            let mut group = Group::default();
+            let n = self.weighted_sources(k, &mut s.buf);
+            s.acc_t.fill(0.0);
+            s.acc_e.fill(0.0);
+            let mut lanes = Lanes::default();
             for i in 0..n {
                 let x = k * (self.eta0 - self.nodes.eta[i]);
                 if x <= 1e-8 {
                     continue;
                 }
-                let lc = l_cut(x).min(lmax + 1);
-                if lc < 3 {
-                    continue;
-                }
-                let [s0, s1, s2, se] = [buf[4 * i], buf[4 * i + 1], buf[4 * i + 2], buf[4 * i + 3]];
+                let b = &s.buf[4 * i..4 * i + 4];
+                let [s0, s1, s2, se] = [b[0], b[1], b[2], b[3]];
                 let ix = 1.0 / x;
                 let coef = [
                     s0 - s2,
@@ -101,42 +110,29 @@ impl Projection<'_> {
                     -s1 + 3.0 * s2 * ix,
                     se * ix * ix,
                 ];
-                if x >= (lmax + 2) as f64 {
-                    // Every l <= lmax + 1 lies below the turning point: the upward
-                    // recurrence is stable there, and is fused with the accumulation.
-                    if group.push(x, coef) {
-                        group.run(tr, er, lmax);
-                    }
-                    continue;
-                }
-                let [ca, cb, cc, cd, ce] = coef;
-                sph_bessel_all_l(lc as u32, x, &mut jl[..=lc]);
-                // Equal-length slices: no bounds checks, so the loop vectorizes.
-                let tr = &mut tr[2..lc];
-                let er = &mut er[2..lc];
-                let j0 = &jl[2..lc];
-                let j1 = &jl[3..=lc];
-                let lf = &lf[2..lc];
-                let ll1 = &ll1[2..lc];
-                for i in 0..tr.len() {
-                    let j = j0[i];
-                    tr[i] += j * (ca + lf[i] * cb + ll1[i] * cc) + j1[i] * cd;
-                    er[i] += j * ce;
+                if lanes.push(x, coef) {
+                    lanes.run(lmax, &mut s.acc_t, &mut s.acc_e, &mut s.rat);
                 }
             }
-            if group.len > 0 {
-                group.run(tr, er, lmax);
-            }
-            for l in 0..nl {
-                er[l] *= enorm[l];
+            lanes.run(lmax, &mut s.acc_t, &mut s.acc_e, &mut s.rat);
+            for l in 2..nl {
+                tr[l] = s.acc_t[l * LANES..(l + 1) * LANES].iter().sum();
+                er[l] = s.acc_e[l * LANES..(l + 1) * LANES].iter().sum::<f64>() * enorm[l];
             }
         };
         if parallel {
-            t.par_chunks_mut(nl)
-                .zip(e.par_chunks_mut(nl))
+            // Blocks of consecutive k, each with one scratch (a scratch per rayon job
+            // would be allocated, page-faulted and freed thousands of times).
+            let block = ks.len().div_ceil(16 * rayon::current_num_threads()).max(1);
+            t.par_chunks_mut(nl * block)
+                .zip(e.par_chunks_mut(nl * block))
                 .enumerate()
-                .with_max_len(4)
-                .for_each_init(init, one);
+                .for_each_init(init, |s, (ib, (tb, eb))| {
+                    let rows = tb.chunks_mut(nl).zip(eb.chunks_mut(nl));
+                    for (j, r) in rows.enumerate() {
+                        one(s, (ib * block + j, r));
+                    }
+                });
         } else {
             let mut scratch = init();
             for r in t.chunks_mut(nl).zip(e.chunks_mut(nl)).enumerate() {
@@ -202,82 +198,6 @@ impl Projection<'_> {
             }
         }
         (t, e)
-    }
-}
-
-/// Lanes of the fused kernel.
-const LANES: usize = 4;
-
-/// Up to four nodes of one k whose x exceeds lmax + 1: their j_l for all l come from the
-/// upward recurrence j_{l+1} = (2l + 1)/x j_l - j_{l-1} from the exact j_0, j_1 (stable
-/// below the turning point, as in `sph_bessel_all_l`), run for the four nodes side by side
-/// and accumulated directly into the rows, which hides the latency of the recurrence.
-#[derive(Default)]
-struct Group {
-    len: usize,
-    ix: [f64; LANES],
-    j0: [f64; LANES],
-    j1: [f64; LANES],
-    /// Per lane: ca, cb, cc, cd, ce as in `every_l`.
-    c: [[f64; LANES]; 5],
-}
-
-impl Group {
-    /// Adds a node; true when the group is full.
-    fn push(&mut self, x: f64, coef: [f64; 5]) -> bool {
-        let g = self.len;
-        let (s, co) = x.sin_cos();
-        self.ix[g] = 1.0 / x;
-        self.j0[g] = s / x;
-        self.j1[g] = (s / x - co) / x;
-        for (c, v) in self.c.iter_mut().zip(coef) {
-            c[g] = v;
-        }
-        self.len += 1;
-        self.len == LANES
-    }
-
-    /// Accumulates the group into the rows (l = 2..=lmax) and empties it.
-    fn run(&mut self, tr: &mut [f64], er: &mut [f64], lmax: usize) {
-        for g in self.len..LANES {
-            // Idle lanes: zero coefficients on a harmless argument.
-            self.ix[g] = 1e-6;
-            self.j0[g] = 0.0;
-            self.j1[g] = 0.0;
-            for c in self.c.iter_mut() {
-                c[g] = 0.0;
-            }
-        }
-        let [ca, cb, cc, cd, ce] = self.c;
-        let ix = self.ix;
-        let mut jm = self.j0;
-        let mut jc = self.j1;
-        // l = 1 -> j_2.
-        for g in 0..LANES {
-            let jp = 3.0 * ix[g] * jc[g] - jm[g];
-            jm[g] = jc[g];
-            jc[g] = jp;
-        }
-        let tr = &mut tr[2..=lmax];
-        let er = &mut er[2..=lmax];
-        for (i, (t, e)) in tr.iter_mut().zip(er.iter_mut()).enumerate() {
-            let lf = (i + 2) as f64;
-            let tl = 2.0 * lf + 1.0;
-            let ll1 = lf * (lf - 1.0);
-            let mut ta = 0.0;
-            let mut ea = 0.0;
-            for g in 0..LANES {
-                let j = jc[g];
-                let jp = tl * ix[g] * j - jm[g];
-                ta += j * (ca[g] + lf * cb[g] + ll1 * cc[g]) + jp * cd[g];
-                ea += j * ce[g];
-                jm[g] = j;
-                jc[g] = jp;
-            }
-            *t += ta;
-            *e += ea;
-        }
-        self.len = 0;
     }
 }
 
@@ -374,40 +294,6 @@ impl PairTables {
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    #[test]
-    fn fused_recurrence_matches_bessel_routine() {
-        // Lane g (weight w = g + 1) accumulates T_l += w j_l + (w/2) j_{l+1} (coefficients
-        // ca and cd) and E_l += w j_l (ce), checked against sph_bessel_all_l.
-        let lmax = 400;
-        let xs = [402.5, 517.0, 1999.3];
-        let mut tr = vec![0.0; lmax + 1];
-        let mut er = vec![0.0; lmax + 1];
-        let mut g = Group::default();
-        for (i, &x) in xs.iter().enumerate() {
-            let w = (i + 1) as f64;
-            g.push(x, [w, 0.0, 0.0, 0.5 * w, w]);
-        }
-        g.run(&mut tr, &mut er, lmax);
-        let mut want_t = vec![0.0; lmax + 1];
-        let mut want_e = vec![0.0; lmax + 1];
-        let mut jl = vec![0.0; lmax + 2];
-        for (i, &x) in xs.iter().enumerate() {
-            let w = (i + 1) as f64;
-            sph_bessel_all_l(lmax as u32 + 1, x, &mut jl);
-            for l in 2..=lmax {
-                want_t[l] += w * jl[l] + 0.5 * w * jl[l + 1];
-                want_e[l] += w * jl[l];
-            }
-        }
-        for l in 2..=lmax {
-            let scale = 1.0 / 400.0; // |j_l(x)| <= ~1/x
-            assert!((tr[l] - want_t[l]).abs() < 1e-12 * scale, "l={l}");
-            assert!((er[l] - want_e[l]).abs() < 1e-12 * scale, "l={l}");
-        }
-        assert_eq!(tr[0], 0.0);
-        assert_eq!(tr[1], 0.0);
-    }
 
     #[test]
     fn l_cut_bounds_the_bessel_function() {
