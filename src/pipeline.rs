@@ -291,7 +291,7 @@ fn build_cmb_pieces(
             progress("CMB lensing");
             settings.progress.step("CMB lensing", None);
             let th = ThermalHistory::new(c, bg)?;
-            Some(crate::cmb::lensing::lensing_of(
+            Some(crate::cmb::lensing::cached_lensing(
                 c,
                 &th,
                 bg,
@@ -300,6 +300,7 @@ fn build_cmb_pieces(
                 sc.delensing,
                 1,
                 parallel,
+                &settings.cache,
             )?)
         }
         crate::cmb::lensing::CovarianceSpectra::Unlensed => None,
@@ -312,15 +313,17 @@ fn build_cmb_pieces(
             &th,
             bg,
             &table,
-            lensing.as_ref(),
+            lensing.as_ref().map(|l| &l.0),
             lmax,
             parallel,
         )?)
     } else {
         None
     };
-    let lensed = lensing.map(|l| l.lensed);
+    let lensing_cache = lensing.as_ref().map(|l| l.1.label());
+    let lensed = lensing.map(|l| l.0.lensed);
     if let Value::Object(m) = &mut meta {
+        m.insert("lensing_cache".into(), Value::from(lensing_cache));
         m.insert("cmb_spectra".into(), Value::from(sc.cmb_spectra.label()));
         m.insert("delensing".into(), Value::from(sc.delensing));
     }

@@ -10,7 +10,7 @@ use crate::cmb::collapsed::{CollapsedForecast, CollapsedSettings, tau_nl_fisher}
 use crate::cmb::experiment::{Experiment, validate_lmax};
 use crate::cmb::lensing::bias::{BIAS_NOTE, LensingBias};
 use crate::cmb::lensing::isw_bispectrum::isw_lensing_for;
-use crate::cmb::lensing::{CovarianceSpectra, lensing_of};
+use crate::cmb::lensing::{CovarianceSpectra, cached_lensing};
 use crate::cmb::thermal::ThermalHistory;
 use crate::combine::{log_slopes, sigmas};
 use crate::cosmology::{Background, Cosmology, Primordial};
@@ -135,7 +135,7 @@ pub fn cmb_report(
         opts.shapes.clone()
     };
     let lensing = match opts.spectra {
-        CovarianceSpectra::Lensed => Some(lensing_of(
+        CovarianceSpectra::Lensed => Some(cached_lensing(
             c,
             &th,
             &bg,
@@ -144,9 +144,12 @@ pub fn cmb_report(
             opts.delensing,
             1,
             opts.parallel,
+            &opts.cache,
         )?),
         CovarianceSpectra::Unlensed => None,
     };
+    let lensing_cache = lensing.as_ref().map(|l| l.1.label());
+    let lensing = lensing.map(|l| l.0);
     let inp = CmbFisherInput {
         transfer: &table,
         primordial: Primordial::new(c),
@@ -230,6 +233,7 @@ pub fn cmb_report(
         "shapes": opts.shapes.iter().map(|s| s.name()).chain(opts.tau_nl.then(|| crate::shapes::TAU_NL.to_string())).collect::<Vec<_>>(),
         "cmb_spectra": opts.spectra.label(),
         "delensing": opts.delensing,
+        "lensing_cache": lensing_cache,
         "radial_nodes": radial.len(),
         "k_nodes": table.k().len(),
     });

@@ -164,6 +164,7 @@ mod weyl;
 pub use cache::{
     CacheOptions, CacheStatus, cache_file, cache_key, cached_transfer, read_table, write_table,
 };
+pub(crate) use cache::{Fnv1a, SOLVER_VERSION};
 pub use spectra::{SampledSpectra, Spectra};
 pub use weyl::WeylTable;
 

@@ -4,10 +4,12 @@
 //! ([`isw_bispectrum`]) and the bias it induces on f_NL ([`bias`]).
 
 pub mod bias;
+pub mod cache;
 pub mod isw_bispectrum;
 pub mod lensed_cl;
 pub mod potential;
 
+pub use cache::{LensingCacheStatus, cached_lensing};
 pub use lensed_cl::{LensedSpectra, UNLENSED_MARGIN, lensed_spectra};
 pub use potential::{L_LOS, LensingSpectra, WeylSource};
 
