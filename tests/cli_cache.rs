@@ -159,7 +159,24 @@ fn cache_dir_and_no_cache_flags() {
     let s: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(&summaries[0]).unwrap()).unwrap();
     assert_eq!(s["inputs"]["transfer"]["cache"]["status"], "hit");
-    assert!(files_in(&env_dir).is_empty() && files_in(&flag_dir).len() == 1);
+    // One transfer table, plus the lensed spectra of the runs (lensed covariance).
+    let names: Vec<String> = files_in(&flag_dir)
+        .iter()
+        .map(|p| p.file_name().unwrap().to_string_lossy().into_owned())
+        .collect();
+    assert!(files_in(&env_dir).is_empty(), "{:?}", files_in(&env_dir));
+    assert_eq!(
+        names.iter().filter(|n| n.starts_with("transfer-")).count(),
+        1,
+        "{names:?}"
+    );
+    assert!(
+        names
+            .iter()
+            .all(|n| n.starts_with("transfer-") || n.starts_with("lensing-")),
+        "{names:?}"
+    );
+    assert_eq!(s["inputs"]["transfer"]["lensing_cache"], "hit");
 
     // The two flags together are refused.
     let o = run_env(
