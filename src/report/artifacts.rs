@@ -69,7 +69,7 @@ pub fn sigma_vs_kmax(r: &RunResult) -> Vec<Artifact> {
         let mut t = Table::new(
             &format!("sigma_vs_kmax_{}", slug(&shape)),
             &format!(
-                "sigma(f_NL {shape}) marginalized over the other shapes: survey probes versus k_max; CMB rows (T+E and T) at their largest l_max"
+                "sigma(f_NL {shape}), single-shape (the other f_NL fixed, nuisances marginalized; the headline convention) with the shape-marginalized value beside it: survey probes versus k_max; CMB rows (T+E and T) at their largest l_max"
             ),
             vec![
                 Column::new("kind", "survey or cmb"),
@@ -77,6 +77,10 @@ pub fn sigma_vs_kmax(r: &RunResult) -> Vec<Artifact> {
                 Column::new("probe", "survey probe (P, B, P+B) or CMB field set"),
                 Column::new("kmax_h_mpc", "survey k_max (empty for CMB rows)"),
                 Column::new("lmax", "CMB l_max used (empty for survey rows)"),
+                Column::new(
+                    "sigma_single",
+                    "sigma(f_NL), single-shape (other f_NL fixed, nuisances marginalized): the plotted value",
+                ),
                 Column::new(
                     "sigma_marginal",
                     "sigma(f_NL), marginalized over the other shapes",
@@ -90,9 +94,9 @@ pub fn sigma_vs_kmax(r: &RunResult) -> Vec<Artifact> {
                     .kmax_h_mpc
                     .iter()
                     .enumerate()
-                    .map(|(ik, &k)| (k, s.forecast.total[ik][pidx(p)].sigma_marginal_or_inf()[is]))
+                    .map(|(ik, &k)| (k, s.forecast.total[ik][pidx(p)].sigma_conditional(is)))
                     .collect();
-                for &(k, v) in &pts {
+                for (ik, &(k, v)) in pts.iter().enumerate() {
                     t.push(vec![
                         "survey".into(),
                         s.survey.name.clone().into(),
@@ -100,6 +104,7 @@ pub fn sigma_vs_kmax(r: &RunResult) -> Vec<Artifact> {
                         k.into(),
                         f64::NAN.into(),
                         v.into(),
+                        s.forecast.total[ik][pidx(p)].sigma_marginal_or_inf()[is].into(),
                     ]);
                 }
                 // Colour by probe, dash (and marker) by survey; surveys beyond the second
@@ -124,6 +129,11 @@ pub fn sigma_vs_kmax(r: &RunResult) -> Vec<Artifact> {
             let at = |ifs: usize| {
                 c.forecast.fisher[ifs]
                     .last()
+                    .map_or(f64::NAN, |m| m.sigma_conditional(is))
+            };
+            let at_marginal = |ifs: usize| {
+                c.forecast.fisher[ifs]
+                    .last()
                     .map_or(f64::NAN, |m| m.sigma_marginal_or_inf()[is])
             };
             let (lo, hi) = (at(te), at(tt));
@@ -137,6 +147,7 @@ pub fn sigma_vs_kmax(r: &RunResult) -> Vec<Artifact> {
                     f64::NAN.into(),
                     grid.min(own_lmax(c, fs)).into(),
                     v.into(),
+                    at_marginal(ifs).into(),
                 ]);
             }
             bands.push(Band {
@@ -162,7 +173,7 @@ pub fn sigma_vs_kmax(r: &RunResult) -> Vec<Artifact> {
             Figure::Lines(LinePlot {
                 title: format!("f_NL {shape}: survey versus CMB"),
                 x_label: crate::report::kmax_axis_label(r.surveys.iter().map(|s| &s.survey)),
-                y_label: format!("{}, marginalized over other shapes", sigma_label(&shape)),
+                y_label: format!("{}, single-shape", sigma_label(&shape)),
                 log_x: true,
                 log_y: true,
                 series,
@@ -202,7 +213,7 @@ pub fn sigma_vs_lmax(r: &RunResult) -> Vec<Artifact> {
                     slug(&shape)
                 ),
                 &format!(
-                    "{}: sigma(f_NL {shape}) versus l_max per field set; each field stops at its own l_max",
+                    "{}: sigma(f_NL {shape}) versus l_max per field set (plotted: sigma_conditional, single-shape); each field stops at its own l_max",
                     c.experiment.name
                 ),
                 vec![
@@ -242,6 +253,10 @@ pub fn sigma_vs_lmax(r: &RunResult) -> Vec<Artifact> {
                     .iter()
                     .map(|&(_, m)| mats[m].sigma_marginal_or_inf()[is])
                     .collect();
+                let single: Vec<f64> = grid
+                    .iter()
+                    .map(|&(_, m)| mats[m].sigma_conditional(is))
+                    .collect();
                 let slope = log_slopes(&lm, &info);
                 for (k, &(l, m)) in grid.iter().enumerate() {
                     t.push(vec![
@@ -255,7 +270,7 @@ pub fn sigma_vs_lmax(r: &RunResult) -> Vec<Artifact> {
                 }
                 top.push(Series {
                     label: fs.label().into(),
-                    points: lm.iter().copied().zip(sig).collect(),
+                    points: lm.iter().copied().zip(single).collect(),
                     colour: ifs,
                     dashed: false,
                 });
@@ -270,7 +285,7 @@ pub fn sigma_vs_lmax(r: &RunResult) -> Vec<Artifact> {
                 LinePlot {
                     title: format!("{}: f_NL {shape}", c.experiment.name),
                     x_label: "ℓₘₐₓ".into(),
-                    y_label: format!("{}, marginalized", sigma_label(&shape)),
+                    y_label: format!("{}, single-shape", sigma_label(&shape)),
                     log_x: true,
                     log_y: true,
                     series: top,
@@ -311,7 +326,7 @@ pub fn joint_planes(r: &RunResult) -> Vec<Artifact> {
                 s.forecast
                     .total
                     .iter()
-                    .map(|t| t[pidx(pb)].sigma_marginal_or_inf()[is])
+                    .map(|t| t[pidx(pb)].sigma_conditional(is))
                     .collect()
             };
             for (is, shape) in sc.shapes.iter().map(|s| s.name()).enumerate() {
@@ -323,7 +338,7 @@ pub fn joint_planes(r: &RunResult) -> Vec<Artifact> {
                         slug(&shape)
                     ),
                     &format!(
-                        "{} ({}) + {} ({}): joint sigma(f_NL {shape}) marginalized, over (l_max, k_max)",
+                        "{} ({}) + {} ({}): joint sigma(f_NL {shape}) over (l_max, k_max), single-shape (plotted, and the crossover curve) and marginalized over the other shapes",
                         c.experiment.name,
                         c.forecast.field_sets[fs].label(),
                         s.survey.name,
@@ -332,6 +347,10 @@ pub fn joint_planes(r: &RunResult) -> Vec<Artifact> {
                     vec![
                         Column::new("lmax", "CMB l_max used"),
                         Column::new("kmax_h_mpc", "survey k_max"),
+                        Column::new(
+                            "sigma_joint",
+                            "joint sigma(f_NL), single-shape (other f_NL fixed, nuisances marginalized)",
+                        ),
                         Column::new(
                             "sigma_joint_marginal",
                             "joint sigma(f_NL), marginalized over the other shapes",
@@ -345,14 +364,18 @@ pub fn joint_planes(r: &RunResult) -> Vec<Artifact> {
                     let fc = &c.forecast.fisher[fs][m];
                     let mut row = Vec::new();
                     for (ik, &k) in sc.kmax_h_mpc.iter().enumerate() {
-                        let v = fc
-                            .combine(&s.forecast.total[ik][pidx(pb)])
-                            .sigma_marginal_or_inf()[is];
+                        let joint = fc.combine(&s.forecast.total[ik][pidx(pb)]);
+                        let v = joint.sigma_conditional(is);
                         row.push(v);
-                        t.push(vec![lm.into(), k.into(), v.into()]);
+                        t.push(vec![
+                            lm.into(),
+                            k.into(),
+                            v.into(),
+                            joint.sigma_marginal_or_inf()[is].into(),
+                        ]);
                     }
                     values.push(row);
-                    let x = crossover(&sc.kmax_h_mpc, &sig_of(is), fc.sigma_marginal_or_inf()[is]);
+                    let x = crossover(&sc.kmax_h_mpc, &sig_of(is), fc.sigma_conditional(is));
                     match (x.kmax_h_mpc, x.below_grid) {
                         (Some(k), false) => curve.push((k, lm as f64)),
                         (Some(k), true) => bounds.push((k, lm as f64)),
@@ -371,7 +394,7 @@ pub fn joint_planes(r: &RunResult) -> Vec<Artifact> {
                     x: sc.kmax_h_mpc.clone(),
                     y: grid.iter().map(|&(l, _)| l as f64).collect(),
                     values,
-                    value_label: "joint σ(f_NL), marginalized".into(),
+                    value_label: "joint σ(f_NL), single-shape".into(),
                     curve: Some(("survey beats CMB (crossover)".into(), curve)),
                     bounds,
                 });
@@ -525,7 +548,7 @@ pub fn per_bin(r: &RunResult) -> Vec<Artifact> {
                 let mut pts = Vec::new();
                 for b in &s.forecast.bins {
                     let m = &b.fisher[ik][pidx(p)];
-                    let v = m.sigma_marginal_or_inf()[is];
+                    let v = m.sigma_conditional(is);
                     t.push(vec![
                         shape.clone().into(),
                         p.label().into(),
@@ -533,8 +556,8 @@ pub fn per_bin(r: &RunResult) -> Vec<Artifact> {
                         b.bin.z_max.into(),
                         b.bin.z_eff.into(),
                         (b.kmax_used_mpc[ik] / h).into(),
+                        m.sigma_marginal_or_inf()[is].into(),
                         v.into(),
-                        m.sigma_conditional(is).into(),
                     ]);
                     pts.push((b.bin.z_min, v));
                     pts.push((b.bin.z_max, v));
@@ -557,7 +580,7 @@ pub fn per_bin(r: &RunResult) -> Vec<Artifact> {
                 format_sig(sc.kmax_h_mpc[ik], 3)
             ),
             x_label: "z (bin edges)".into(),
-            y_label: "σ(f_NL) of the bin alone, marginalized".into(),
+            y_label: "σ(f_NL) of the bin alone, single-shape".into(),
             log_x: false,
             log_y: true,
             series,
