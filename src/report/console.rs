@@ -10,6 +10,28 @@ use crate::report::artifacts::{cmb_reference_set, headline_probe, pidx};
 use crate::report::format_sig;
 use crate::report::outputs::crossovers;
 
+/// " (Halcyon: T 2500, E 2000; ...)" for the experiments of a run, or nothing.
+fn own_lmax_note(r: &RunResult) -> String {
+    let parts: Vec<String> = r
+        .cmb
+        .iter()
+        .map(|c| {
+            let grid = r.scenario.lmax.last().copied().unwrap_or(0);
+            format!(
+                "{}: T {}, E {}",
+                c.experiment.name,
+                c.experiment.lmax_t.min(grid),
+                c.experiment.lmax_e.min(grid)
+            )
+        })
+        .collect();
+    if parts.is_empty() {
+        String::new()
+    } else {
+        format!(" ({})", parts.join("; "))
+    }
+}
+
 /// The compact terminal summary (fits 100 columns).
 pub fn terminal_summary(r: &RunResult) -> String {
     let sc = &r.scenario;
@@ -19,9 +41,10 @@ pub fn terminal_summary(r: &RunResult) -> String {
     let head = headline_probe(&sc.probes);
     out.push_str(&format!("ngreach {}: {}\n", crate::VERSION, sc.name));
     out.push_str(&format!(
-        "sigma(f_NL) per shape: first line single-shape (other f_NL fixed, nuisances marginalized),\n`marg.` line marginalized over the other shapes; k_x: survey {} beats the CMB (same basis)\nCMB: T+E at l_max = {}; surveys at k_max = {} h/Mpc (see each survey's line for its meaning and the per-bin table for each bin's value)\n",
+        "sigma(f_NL) per shape: first line single-shape (other f_NL fixed, nuisances marginalized),\n`marg.` line marginalized over the other shapes; k_x: survey {} beats the CMB (same basis)\nCMB: T+E at the largest grid l_max = {}, each field capped at its experiment's own l_max{}; surveys at k_max = {} h/Mpc (see each survey's line for its meaning and the per-bin table for each bin's value)\n",
         head.map_or("-", |p| p.label()),
         sc.lmax.last().copied().unwrap_or(0),
+        own_lmax_note(r),
         format_sig(kx, 3)
     ));
     let short = |s: &str, n: usize| -> String {

@@ -35,7 +35,7 @@ where
     DB::ErrorType: 'static,
 {
     let font = |sz: u32| (FAMILY, sz).into_font();
-    let (left, bar) = root.split_horizontally(1030);
+    let (left, bar) = root.split_horizontally(990);
     let (head, body) = left.split_vertically(70);
     head.draw(&Text::new(p.title.clone(), (20, 18), font(32)))
         .map_err(draw_err)?;
@@ -131,7 +131,7 @@ where
         .margin_top(90)
         .margin_bottom(110)
         .margin_right(10)
-        .y_label_area_size(120)
+        .y_label_area_size(150)
         .build_cartesian_2d(
             0.0..1.0,
             (10f64.powf(lo)..10f64.powf(hi))
