@@ -39,7 +39,7 @@ use rayon::prelude::*;
 
 use super::isw_bispectrum::{IswLensingBispectrum, gradient_legendre_all};
 use crate::cmb::bispectrum::{BispectrumPlan, FieldSet, legendre_all};
-use crate::cmb::lensing::lensed_cl::wigner_d;
+use crate::cmb::lensing::lensed_cl::DRecurrence;
 use crate::cmb::transfer::{Field, RadialGrid};
 use crate::fisher::FisherMatrix;
 use crate::numerics::GaussLegendre;
@@ -581,48 +581,6 @@ fn self_terms(
         }
     }
     out
-}
-
-/// Wigner d^l_{mn}(mu) for one spin pair by the upward recurrence with its coefficients
-/// tabulated once (d^{l+1} = (a_l mu + c_l) d^l - b_l d^{l-1}; start values from
-/// [`wigner_d`]), so that a node costs three operations per l.
-struct DRecurrence {
-    m: i32,
-    n: i32,
-    a: Vec<f64>,
-    b: Vec<f64>,
-    c: Vec<f64>,
-}
-
-impl DRecurrence {
-    fn new(m: i32, n: i32, lmax: usize) -> Self {
-        let (mf, nf) = (f64::from(m), f64::from(n));
-        let mut a = vec![0.0; lmax + 1];
-        let mut b = vec![0.0; lmax + 1];
-        let mut c = vec![0.0; lmax + 1];
-        for l in 1..lmax {
-            let lf = l as f64;
-            let den = lf * (((lf + 1.0).powi(2) - mf * mf) * ((lf + 1.0).powi(2) - nf * nf)).sqrt();
-            if den == 0.0 {
-                continue;
-            }
-            a[l] = (2.0 * lf + 1.0) * lf * (lf + 1.0) / den;
-            c[l] = -(2.0 * lf + 1.0) * mf * nf / den;
-            b[l] = (lf + 1.0) * ((lf * lf - mf * mf) * (lf * lf - nf * nf)).max(0.0).sqrt() / den;
-        }
-        Self { m, n, a, b, c }
-    }
-
-    fn fill(&self, mu: f64, out: &mut [f64]) {
-        let j = self.m.unsigned_abs().max(self.n.unsigned_abs()) as usize;
-        let lmax = out.len() - 1;
-        let top = (j + 1).min(lmax);
-        out.fill(0.0);
-        wigner_d(self.m, self.n, mu, &mut out[..=top]);
-        for l in top..lmax {
-            out[l + 1] = (self.a[l] * mu + self.c[l]) * out[l] - self.b[l] * out[l - 1];
-        }
-    }
 }
 
 /// The brute-force oracle: the direct triple sum over every (l1, l2, l3) <= `lmax` with

@@ -131,9 +131,10 @@ pub fn wigner_d(m: i32, n: i32, mu: f64, out: &mut [f64]) {
     }
 }
 
-/// Recurrence coefficients of d^l_{mn} for one spin pair: d^{l+1} = (a[l] mu + c[l]) d^l
-/// - b[l] d^{l-1}, so that a node costs three operations per l.
-struct DRecurrence {
+/// Recurrence coefficients of d^l_{mn} for one spin pair, d^{l+1} = (a[l] mu + c[l]) d^l
+/// minus b[l] d^{l-1}, so that a node costs three operations per l (shared with the
+/// ISW-lensing self term in [`crate::cmb::lensing::bias`]).
+pub(crate) struct DRecurrence {
     m: i32,
     n: i32,
     a: Vec<f64>,
@@ -142,7 +143,7 @@ struct DRecurrence {
 }
 
 impl DRecurrence {
-    fn new(m: i32, n: i32, lmax: usize) -> Self {
+    pub(crate) fn new(m: i32, n: i32, lmax: usize) -> Self {
         let (mf, nf) = (f64::from(m), f64::from(n));
         let mut a = vec![0.0; lmax + 1];
         let mut b = vec![0.0; lmax + 1];
@@ -161,7 +162,7 @@ impl DRecurrence {
     }
 
     /// d^l_{mn}(mu) for l = 0..=lmax into `out` (the start value from [`wigner_d`]).
-    fn fill(&self, mu: f64, out: &mut [f64]) {
+    pub(crate) fn fill(&self, mu: f64, out: &mut [f64]) {
         let j = self.m.unsigned_abs().max(self.n.unsigned_abs()) as usize;
         let lmax = out.len() - 1;
         // Start values (l = j, and l = 1 for m = n = 0) from the closed forms.
