@@ -72,7 +72,7 @@ fn cell(v: &Value) -> (String, bool) {
 
 /// Keys shown first, in this order, when a table has them: what a row is about, then
 /// where on the grid; every other key follows in the order met.
-const LEADING: [&str; 21] = [
+const LEADING: [&str; 23] = [
     "folder",
     "experiment",
     "cmb_fields",
@@ -86,6 +86,8 @@ const LEADING: [&str; 21] = [
     "z_max",
     "z_eff",
     "lmax",
+    "lmax_t_used",
+    "lmax_e_used",
     "kmax_h_mpc",
     "kmax_used_h_mpc",
     "squeezed_share",

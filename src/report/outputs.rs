@@ -74,6 +74,24 @@ pub fn crossovers(r: &RunResult) -> Vec<CrossoverRow> {
     out
 }
 
+/// The l_max each field of a field set actually used at grid value `grid` (the grid value
+/// capped at the experiment's own l_max of that field), as (T, E) JSON values, null for a
+/// field not in the set.
+fn fields_used(
+    c: &crate::pipeline::CmbResult,
+    fs: crate::cmb::bispectrum::FieldSet,
+    grid: usize,
+) -> (Value, Value) {
+    use crate::cmb::bispectrum::FieldSet;
+    let t = Value::from(grid.min(c.experiment.lmax_t));
+    let e = Value::from(grid.min(c.experiment.lmax_e));
+    match fs {
+        FieldSet::T => (t, Value::Null),
+        FieldSet::E => (Value::Null, e),
+        FieldSet::TE => (t, e),
+    }
+}
+
 /// The whole `summary.json` object.
 pub fn summary_json(r: &RunResult) -> Value {
     let sc = &r.scenario;
@@ -94,6 +112,7 @@ pub fn summary_json(r: &RunResult) -> Value {
                     let bias = c.lensing.as_ref().map(|b| b.bias(f, ifs, m));
                     cmb_rows.push(json!({
                         "experiment": c.experiment.name, "lmax": c.forecast.lmax[m], "fields": fs.label(), "shape": shape,
+                        "lmax_t_used": fields_used(c, *fs, c.forecast.lmax[m]).0, "lmax_e_used": fields_used(c, *fs, c.forecast.lmax[m]).1,
                         "sigma_conditional": num(cond[is]), "sigma_marginal": num(marg[is]), "log_slope": num(slopes[m]),
                         "lensing_bias": bias.as_ref().map_or(Value::Null, |b| num(b.single[is])),
                         "lensing_bias_marginal": bias.as_ref().map_or(Value::Null, |b| num(b.joint[is])),
@@ -156,6 +175,7 @@ pub fn summary_json(r: &RunResult) -> Value {
                             let imp_marg = improvement(&[cm[is], sm[is]], jm[is]);
                             joint_rows.push(json!({"experiment": c.experiment.name, "cmb_fields": c.forecast.field_sets[fs].label(), "survey": s.survey.name,
                                 "probe": p.label(), "lmax": lm, "kmax_h_mpc": k, "shape": shape, "sigma_conditional": num(jc[is]),
+                                "lmax_t_used": fields_used(c, c.forecast.field_sets[fs], lm).0, "lmax_e_used": fields_used(c, c.forecast.field_sets[fs], lm).1,
                                 "sigma_marginal": num(jm[is]), "sigma_cmb": num(cc[is]), "sigma_survey": num(sc_[is]), "sigma_joint": num(jc[is]),
                                 "sigma_cmb_marginal": num(cm[is]), "sigma_survey_marginal": num(sm[is]), "sigma_joint_marginal": num(jm[is]),
                                 "improvement": num(imp_single), "improvement_marginal": num(imp_marg)}));
@@ -164,6 +184,7 @@ pub fn summary_json(r: &RunResult) -> Value {
                                 // marginalized); marginalized over the other shapes beside it.
                                 rows.push(json!({"experiment": c.experiment.name, "survey": s.survey.name, "probe": p.label(), "shape": shape,
                                     "lmax": lm, "kmax_h_mpc": k, "sigma_cmb": num(cc[is]), "sigma_survey": num(sc_[is]), "sigma_joint": num(jc[is]),
+                                    "lmax_t_used": fields_used(c, c.forecast.field_sets[fs], lm).0, "lmax_e_used": fields_used(c, c.forecast.field_sets[fs], lm).1,
                                     "sigma_cmb_marginal": num(cm[is]), "sigma_survey_marginal": num(sm[is]), "sigma_joint_marginal": num(jm[is]),
                                     "improvement": num(imp_single), "covariance": s.forecast.covariance.label()}));
                             }
@@ -197,6 +218,7 @@ pub fn summary_json(r: &RunResult) -> Value {
             "k in h/Mpc; l dimensionless; sigma(f_NL) in the CMB convention (growth normalized to a in matter domination)",
             "sigma_conditional: other shapes fixed; sigma_marginal: marginalized over the other shapes; survey nuisances marginalized per bin (b1 and the P shot-noise amplitude per tracer; with B also b2, b_s2 and the B shot-noise amplitude; the theoretical-error amplitudes with the realistic covariance; each unless switched off in [survey.nuisance]; b_phi follows b1 and p, not free)",
             "CMB in comparisons: T+E at the largest l_max of the grid; ln-ln interpolation in k_max",
+            "lmax: the grid value; lmax_t_used / lmax_e_used: the l_max each field actually used (the grid value capped at the experiment's own l_max of that field; null when the field is not in the set)",
             "crossover: kmax_h_mpc, below_grid, cmb_sigma, note on single-shape sigmas of both probes (other f_NL fixed, nuisances marginalized; the headline); kmax_marginal_h_mpc, below_grid_marginal, cmb_sigma_marginal, note_marginal on sigmas marginalized over the other shapes",
             "joint = CMB + survey Fisher matrices (independent probes); improvement = best single-probe sigma / joint sigma",
             "rows and joint: sigma_cmb, sigma_survey, sigma_joint are single-shape constraints (other f_NL fixed, nuisances marginalized), improvement between them; *_marginal (and improvement_marginal) are marginalized over the other shapes; joint sigma_conditional / sigma_marginal repeat sigma_joint / sigma_joint_marginal",
