@@ -221,12 +221,29 @@ fn csv_tables_npy_matrices_and_the_sidecar() {
     std::fs::remove_dir_all(&out).ok();
 }
 
-/// The tau_NL figures appear in the report page, not only as files.
+/// The tau_NL figures appear in the report page, not only as files, and every figure's
+/// "numbers" link names a file that was written (here with ECSV tables).
 #[test]
 fn tau_nl_figures_are_in_the_page() {
     let out = tmp("tau-page");
-    run_to(&out, &[], "tests/data/scenario_tau_nl.toml");
+    run_to(
+        &out,
+        &["--tables", "ecsv"],
+        "tests/data/scenario_tau_nl.toml",
+    );
     let html = std::fs::read_to_string(out.join("report.html")).unwrap();
+    let links: Vec<&str> = html
+        .split("numbers: <a href=\"")
+        .skip(1)
+        .map(|rest| rest.split('"').next().unwrap())
+        .collect();
+    assert!(links.len() >= 3, "{links:?}");
+    for l in &links {
+        assert!(
+            out.join(l).is_file(),
+            "report links {l}, which was not written"
+        );
+    }
     assert!(html.contains("<figure id=\"sigma_vs_kmax_tau_nl\">"));
     let lmax_tau = html
         .match_indices("<figure id=\"sigma_vs_lmax_")

@@ -235,12 +235,14 @@ add. We split the bispectrum information by triangle configuration (squeezed, eq
 nearest corner of the plane of side ratios) per multipole or wavenumber triplet. The fiducial cosmology is Planck 2018 base LCDM (Planck Collaboration \
 VI 2020).";
 
-/// The run's page.
+/// The run's page. `written` lists the files of the run folder, so that each figure links
+/// the table file that exists (the tau_NL figure tables are CSV in either table format).
 pub fn run_page(
     r: &RunResult,
     summary: &Value,
     svgs: &[(String, String, String)],
     tables: TableFormat,
+    written: &[String],
 ) -> String {
     let sc = &r.scenario;
     let mut s = head(&format!("ngreach: {}", sc.name));
@@ -256,15 +258,22 @@ pub fn run_page(
     s.push_str(&json_table(array(summary, "crossover"), &[]));
     s.push_str("<h2 id=\"figures\">Figures</h2>\n");
     for (stem, svg, desc) in svgs {
-        let file = format!("{stem}.{}", tables.extension());
+        let numbers = [
+            format!("{stem}.{}", tables.extension()),
+            format!("{stem}.csv"),
+        ]
+        .into_iter()
+        .find(|f| written.contains(f))
+        .map_or(String::new(), |f| {
+            format!("numbers: <a href=\"{}\">{}</a>; ", attr(&f), esc(&f))
+        });
         s.push_str(&format!(
-            "<figure id=\"{}\">\n{}\n<figcaption><b>{}</b>: {} (numbers: <a href=\"{}\">{}</a>; <a href=\"{}\">PNG</a>)</figcaption>\n</figure>\n",
+            "<figure id=\"{}\">\n{}\n<figcaption><b>{}</b>: {} ({}<a href=\"{}\">PNG</a>)</figcaption>\n</figure>\n",
             attr(stem),
             inline_svg(svg),
             esc(stem),
             esc(desc),
-            attr(&file),
-            esc(&file),
+            numbers,
             attr(&format!("{stem}.png"))
         ));
     }

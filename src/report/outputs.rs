@@ -412,7 +412,7 @@ pub fn write_outputs_with(r: &RunResult, dir: &Path, opts: &OutputOptions) -> Re
     let text = serde_json::to_string_pretty(&sidecar).unwrap_or_default() + "\n";
     put("tables.json", text.as_bytes(), &mut written)?;
     if opts.report {
-        let page = crate::report::html::run_page(r, &summary, &svgs, opts.tables);
+        let page = crate::report::html::run_page(r, &summary, &svgs, opts.tables, &written);
         put("report.html", page.as_bytes(), &mut written)?;
     }
     Ok(written)
