@@ -219,6 +219,27 @@ pub fn survey_fisher(
     }
 }
 
+/// The redshift-space model of a bin at z: the growth rate f (0 in real space) and the
+/// squared damping length sigma_r^2 + sigma_v^2 in Mpc^2 (redshift error c sigma_z (1+z)/H
+/// and velocity dispersion sigma_v (1+z)/H). Shared by the engine, the tau_NL power
+/// spectra and the per-triangle budget.
+pub(crate) fn redshift_space(
+    survey: &Survey,
+    power: &LinearPower,
+    bg: &crate::cosmology::Background,
+    z: f64,
+) -> (f64, f64) {
+    let f = if survey.real_space {
+        0.0
+    } else {
+        power.growth().rate(z)
+    };
+    let hz = bg.hubble_km_s_mpc(z);
+    let sig_r = crate::constants::C_KM_S * survey.redshift_error * (1.0 + z) / hz;
+    let sig_v = survey.velocity_dispersion_km_s * (1.0 + z) / hz;
+    (f, sig_r * sig_r + sig_v * sig_v)
+}
+
 /// The non-Gaussian bias response of one tracer in one bin, with the survey's response
 /// model (full shape or the squeezed form cut at k_S). Shared by the engine and the
 /// per-triangle information budget so that both use the same response.
@@ -258,15 +279,7 @@ fn bin_fisher(
         .map(|&k| survey.kmax_for_bin(k, &bin, power).max(kmin))
         .collect();
     let k_nl = table.k_nonlinear(z, survey.sigma_nl);
-    let f = if survey.real_space {
-        0.0
-    } else {
-        power.growth().rate(z)
-    };
-    let hz = bg.hubble_km_s_mpc(z);
-    let sig_r = crate::constants::C_KM_S * survey.redshift_error * (1.0 + z) / hz;
-    let sig_v = survey.velocity_dispersion_km_s * (1.0 + z) / hz;
-    let damp2 = sig_r * sig_r + sig_v * sig_v;
+    let (f, damp2) = redshift_space(survey, power, bg, z);
     let responses: Vec<TracerResponse> = survey
         .tracers
         .iter()

@@ -266,18 +266,12 @@ fn bin_tau_fisher(
         .iter()
         .map(|&k| survey.kmax_for_bin(k, &bin, power).max(kmin))
         .collect();
-    let hz = bg.hubble_km_s_mpc(z);
-    let sig_r = crate::constants::C_KM_S * survey.redshift_error * (1.0 + z) / hz;
-    let sig_v = survey.velocity_dispersion_km_s * (1.0 + z) / hz;
+    let (f, damp2) = crate::survey::fisher::redshift_space(survey, power, bg, z);
     let nt = survey.tracers.len().min(MAX_TRACERS);
     let model = BinModel {
         z,
-        f: if survey.real_space {
-            0.0
-        } else {
-            power.growth().rate(z)
-        },
-        damp2: sig_r * sig_r + sig_v * sig_v,
+        f,
+        damp2,
         b1: survey.tracers[..nt].iter().map(|t| t.bins[ib].b1).collect(),
         bphi: survey.tracers[..nt]
             .iter()

@@ -63,14 +63,7 @@ pub fn triangle_information(
         let kmin = survey.kmin_mpc.unwrap_or(kf);
         let kmax = survey.kmax_for_bin(kmax_mpc, bin, power).max(kmin);
         // As in the engine's bin setup (survey::fisher::bin_fisher).
-        let f = if survey.real_space {
-            0.0
-        } else {
-            power.growth().rate(z)
-        };
-        let hz = bg.hubble_km_s_mpc(z);
-        let sig_r = crate::constants::C_KM_S * survey.redshift_error * (1.0 + z) / hz;
-        let sig_v = survey.velocity_dispersion_km_s * (1.0 + z) / hz;
+        let (f, damp2) = crate::survey::fisher::redshift_space(survey, power, bg, z);
         let t0 = survey.tracers[0].bins[ib];
         let response =
             crate::survey::fisher::tracer_response(survey, &table, power, shapes, &t0, z);
@@ -83,7 +76,7 @@ pub fn triangle_information(
             z,
             model: BispectrumModel {
                 f,
-                damp2: sig_r * sig_r + sig_v * sig_v,
+                damp2,
                 terms: st.terms,
             },
             tracer: BispectrumTracer {

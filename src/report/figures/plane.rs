@@ -220,12 +220,26 @@ where
             .map_err(draw_err)?;
         x += 52 + (label.chars().count() as f64 * 0.6 * LEGEND_FONT as f64) as i32 + 40;
     }
-    // Colour bar.
-    let mut cb = ChartBuilder::on(&bar)
-        .margin_top(80)
-        .margin_bottom(100)
+    colour_bar(&bar, lo, hi, &p.value_label, (80, 100, 110))
+}
+
+/// A vertical log colour bar from 10^lo to 10^hi in `bar`, labelled `label`; `layout` is
+/// (top margin, bottom margin, label area width) in pixels. Shared by the plane and
+/// triangle-plane figures.
+pub(super) fn colour_bar<DB: DrawingBackend>(
+    bar: &Area<'_, DB>,
+    lo: f64,
+    hi: f64,
+    label: &str,
+    layout: (u32, u32, u32),
+) -> Result<()> {
+    let font = |sz: u32| (FAMILY, sz).into_font();
+    let (top, bottom, label_area) = layout;
+    let mut cb = ChartBuilder::on(bar)
+        .margin_top(top)
+        .margin_bottom(bottom)
         .margin_right(10)
-        .y_label_area_size(110)
+        .y_label_area_size(label_area)
         .build_cartesian_2d(
             0.0..1.0,
             (10f64.powf(lo)..10f64.powf(hi))
@@ -236,7 +250,7 @@ where
     cb.configure_mesh()
         .disable_x_axis()
         .disable_mesh()
-        .y_desc(&p.value_label)
+        .y_desc(label)
         .y_label_formatter(&|v| tick(*v, true))
         .label_style(font(22))
         .axis_desc_style(font(24))

@@ -3,7 +3,7 @@
 //! scale and a labelled colour bar; the allowed region is outlined and the class
 //! boundaries (squeezed, equilateral, flattened: the nearest corner) are dashed.
 
-use super::plane::{bar_keys, ramp};
+use super::plane::{colour_bar, ramp};
 use super::*;
 
 /// Panels of shares on the triangle plane.
@@ -126,37 +126,5 @@ where
                 .map_err(draw_err)?;
         }
     }
-    // Colour bar.
-    let mut cb = ChartBuilder::on(&bar)
-        .margin_top(90)
-        .margin_bottom(110)
-        .margin_right(10)
-        .y_label_area_size(150)
-        .build_cartesian_2d(
-            0.0..1.0,
-            (10f64.powf(lo)..10f64.powf(hi))
-                .log_scale()
-                .with_key_points(bar_keys(10f64.powf(lo), 10f64.powf(hi))),
-        )
-        .map_err(draw_err)?;
-    cb.configure_mesh()
-        .disable_x_axis()
-        .disable_mesh()
-        .y_desc(&p.value_label)
-        .y_label_formatter(&|v| tick(*v, true))
-        .label_style(font(22))
-        .axis_desc_style(font(24))
-        .draw()
-        .map_err(draw_err)?;
-    let steps = 60;
-    for i in 0..steps {
-        let a = lo + (hi - lo) * i as f64 / steps as f64;
-        let b = lo + (hi - lo) * (i + 1) as f64 / steps as f64;
-        cb.draw_series(std::iter::once(Rectangle::new(
-            [(0.0, 10f64.powf(a)), (1.0, 10f64.powf(b))],
-            ramp(i as f64 / (steps - 1) as f64).filled(),
-        )))
-        .map_err(draw_err)?;
-    }
-    Ok(())
+    colour_bar(&bar, lo, hi, &p.value_label, (90, 110, 150))
 }
