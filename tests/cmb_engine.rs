@@ -217,7 +217,16 @@ fn split_and_compression(lmax: usize, grid: &[usize]) {
         signal_cl: None,
     });
     let run = |tol: f64, split: bool| {
-        cmb_fisher_with_options(&plan, grid, true, &EngineOptions { tol, split })
+        cmb_fisher_with_options(
+            &plan,
+            grid,
+            true,
+            &EngineOptions {
+                tol,
+                split,
+                ..EngineOptions::default()
+            },
+        )
     };
     let tol = EngineOptions::default().tol;
     let exact = run(tol, false);

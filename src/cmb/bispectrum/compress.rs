@@ -2,8 +2,11 @@
 
 use super::BispectrumPlan;
 
-/// One block of multipoles [l0, l1] (inside one l_max segment) and its low-rank basis on
-/// the active radial range [r0, r0 + w): X^{e,f}_l(r) ~= Sum_q u[l - l0][q] v[e][(f q), r].
+/// One block of multipoles [l0, l1] (inside one l_max segment) and its low-rank bases on
+/// the active radial range [r0, r0 + w), one per field f (T, E): X^{e,f}_l(r) ~=
+/// Sum_{j < q_f} u[f][l - l0][j] v[e][(qoff[f] + j), r]. Each field has a basis of its
+/// own, so a field set's products have inner dimension Sum over its fields of q_f (a
+/// joint basis over both fields would need the larger joint rank for every field).
 pub(super) struct LBlock {
     pub(super) l0: usize,
     pub(super) l1: usize,
@@ -12,23 +15,76 @@ pub(super) struct LBlock {
     pub(super) last: bool,
     pub(super) r0: usize,
     pub(super) w: usize,
+    /// Total rank, Sum_f q_f (0: the block contributes nothing).
     pub(super) q: usize,
+    /// Row offsets of the fields in `v`: field f owns rows qoff[f]..qoff[f + 1]
+    /// (q_f = qoff[f + 1] - qoff[f]).
+    pub(super) qoff: Vec<usize>,
     /// Per field set: the fields [lo, hi) with a non-zero inverse covariance somewhere in
     /// the block (T, E or both: a contiguous range of the table's field indices).
     pub(super) active_fields: Vec<(usize, usize)>,
-    /// nb x q, row-major.
-    pub(super) u: Vec<f64>,
-    /// Per exponent: (n_fields q) x w, row (f q + j).
+    /// Per field: nb x q_f, row-major.
+    pub(super) u: Vec<Vec<f64>>,
+    /// Per exponent: (Sum_f q_f) x w, row qoff[f] + j.
     pub(super) v: Vec<Vec<f64>>,
 }
 
-/// Row-pivoted modified Gram-Schmidt on the block's radial functions (an interpolative,
-/// rank-revealing decomposition; Golub & Van Loan, section 5.4.2): the rows (multipoles)
-/// are the radial functions of all exponents and fields, each (exponent, field) group
-/// scaled by its norm over the block and each row then normalized, so the stopping rule
-/// "largest residual row norm <= tol" bounds every multipole's relative error.
+impl LBlock {
+    /// Rows of the field range [f_lo, f_hi) in `v` (the inner dimension of a field set).
+    pub(super) fn rows(&self, (f_lo, f_hi): (usize, usize)) -> std::ops::Range<usize> {
+        if f_hi <= f_lo {
+            return 0..0;
+        }
+        self.qoff[f_lo]..self.qoff[f_hi]
+    }
+}
+
+/// The per-field bases of one block: (qoff, u per field, v per exponent) as in
+/// [`LBlock`], each field compressed by [`compress_field`].
+pub(super) type BlockBases = (Vec<usize>, Vec<Vec<f64>>, Vec<Vec<f64>>);
+
+/// Compresses every field of the block [l0, l1] on the radial range [r0, r1) separately
+/// (see [`compress_field`]) and stacks the fields' radial bases per exponent.
 pub(super) fn compress_block(
     plan: &BispectrumPlan,
+    l0: usize,
+    l1: usize,
+    r0: usize,
+    r1: usize,
+    tol: f64,
+) -> BlockBases {
+    let ne = plan.exponents.len();
+    let nf = plan.fields.len();
+    let w = r1 - r0;
+    let per_field: Vec<(usize, Vec<f64>, Vec<Vec<f64>>)> = (0..nf)
+        .map(|f| compress_field(plan, f, l0, l1, r0, r1, tol))
+        .collect();
+    let mut qoff = vec![0usize; nf + 1];
+    for (f, pf) in per_field.iter().enumerate() {
+        qoff[f + 1] = qoff[f] + pf.0;
+    }
+    let v = (0..ne)
+        .map(|e| {
+            let mut out = Vec::with_capacity(qoff[nf] * w);
+            for pf in &per_field {
+                out.extend_from_slice(&pf.2[e]);
+            }
+            out
+        })
+        .collect();
+    let u = per_field.into_iter().map(|pf| pf.1).collect();
+    (qoff, u, v)
+}
+
+/// Row-pivoted modified Gram-Schmidt on one field's radial functions in the block (an
+/// interpolative, rank-revealing decomposition; Golub & Van Loan, section 5.4.2): the
+/// rows (multipoles) are the field's radial functions of all exponents, each exponent
+/// group scaled by its norm over the block and each row then normalized, so the stopping
+/// rule "largest residual row norm <= tol" bounds every multipole's relative error of
+/// this field. Returns (q_f, u (nb x q_f), v per exponent (q_f x w)).
+fn compress_field(
+    plan: &BispectrumPlan,
+    f: usize,
     l0: usize,
     l1: usize,
     r0: usize,
@@ -37,41 +93,35 @@ pub(super) fn compress_block(
 ) -> (usize, Vec<f64>, Vec<Vec<f64>>) {
     let n_r = plan.n_r;
     let ne = plan.exponents.len();
-    let nf = plan.fields.len();
     let nb = l1 - l0 + 1;
     let w = r1 - r0;
-    let ng = ne * nf;
+    let ng = ne;
     let ncol = ng * w;
     let mut group_norm = vec![0.0; ng];
-    for e in 0..ne {
-        for f in 0..nf {
-            let x = &plan.x[e][f];
-            let s: f64 = (l0..=l1)
-                .map(|l| {
-                    x[l * n_r + r0..l * n_r + r1]
-                        .iter()
-                        .map(|v| v * v)
-                        .sum::<f64>()
-                })
-                .sum();
-            group_norm[e * nf + f] = s.sqrt();
-        }
+    for (e, gn) in group_norm.iter_mut().enumerate() {
+        let x = &plan.x[e][f];
+        let s: f64 = (l0..=l1)
+            .map(|l| {
+                x[l * n_r + r0..l * n_r + r1]
+                    .iter()
+                    .map(|v| v * v)
+                    .sum::<f64>()
+            })
+            .sum();
+        *gn = s.sqrt();
     }
     // Scaled rows, then normalized: res[l] (nb x ncol).
     let mut res = vec![0.0; nb * ncol];
     let mut d = vec![0.0; nb];
     for (li, l) in (l0..=l1).enumerate() {
         let row = &mut res[li * ncol..(li + 1) * ncol];
-        for e in 0..ne {
-            for f in 0..nf {
-                let g = e * nf + f;
-                if group_norm[g] == 0.0 {
-                    continue;
-                }
-                let src = &plan.x[e][f][l * n_r + r0..l * n_r + r1];
-                for (o, s) in row[g * w..(g + 1) * w].iter_mut().zip(src) {
-                    *o = s / group_norm[g];
-                }
+        for (g, &gn) in group_norm.iter().enumerate() {
+            if gn == 0.0 {
+                continue;
+            }
+            let src = &plan.x[g][f][l * n_r + r0..l * n_r + r1];
+            for (o, s) in row[g * w..(g + 1) * w].iter_mut().zip(src) {
+                *o = s / gn;
             }
         }
         let norm = row.iter().map(|v| v * v).sum::<f64>().sqrt();
@@ -123,15 +173,12 @@ pub(super) fn compress_block(
         }
     }
     let v: Vec<Vec<f64>> = (0..ne)
-        .map(|e| {
-            let mut out = vec![0.0; nf * q * w];
-            for f in 0..nf {
-                let g = e * nf + f;
-                for (j, b) in basis.iter().enumerate() {
-                    let dst = &mut out[(f * q + j) * w..(f * q + j + 1) * w];
-                    for (o, s) in dst.iter_mut().zip(&b[g * w..(g + 1) * w]) {
-                        *o = group_norm[g] * s;
-                    }
+        .map(|g| {
+            let mut out = vec![0.0; q * w];
+            for (j, b) in basis.iter().enumerate() {
+                let dst = &mut out[j * w..(j + 1) * w];
+                for (o, s) in dst.iter_mut().zip(&b[g * w..(g + 1) * w]) {
+                    *o = group_norm[g] * s;
                 }
             }
             out

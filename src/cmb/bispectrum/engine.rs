@@ -6,8 +6,9 @@ use rayon::prelude::*;
 use super::compress::{LBlock, compress_block};
 use super::kernel::{
     Leg, Scratch, canonical_triple, cinv_entry, group_update, legendre_all, make_groups,
+    s_update_flops,
 };
-use super::{ACTIVE_TOL, BLOCK, BispectrumPlan, CmbForecast, EngineOptions, EngineStats};
+use super::{ACTIVE_TOL, BispectrumPlan, CmbForecast, EngineOptions, EngineStats};
 use crate::fisher::FisherMatrix;
 use crate::numerics::GaussLegendre;
 
@@ -126,7 +127,7 @@ pub fn cmb_fisher_with_options(
         let mut l0 = lo;
         while l0 <= hi {
             let rest = hi - l0 + 1;
-            let nblk = rest.div_ceil(BLOCK);
+            let nblk = rest.div_ceil(opts.block.max(1));
             let size = rest.div_ceil(nblk);
             let l1 = (l0 + size - 1).min(hi);
             spans.push((l0, l1, m, l1 == hi));
@@ -159,8 +160,9 @@ pub fn cmb_fisher_with_options(
             r0: 0,
             w: 0,
             q: 0,
+            qoff: vec![0; nf + 1],
             active_fields: vec![(0, 0); nfs],
-            u: Vec::new(),
+            u: vec![Vec::new(); nf],
             v: vec![Vec::new(); ne],
         };
         if l1 < l0 {
@@ -172,7 +174,7 @@ pub fn cmb_fisher_with_options(
         if r1 <= r0 {
             return empty(l1);
         }
-        let (q, u, v) = compress_block(plan, l0, l1, r0, r1, tol);
+        let (qoff, u, v) = compress_block(plan, l0, l1, r0, r1, tol);
         LBlock {
             l0,
             l1,
@@ -180,7 +182,8 @@ pub fn cmb_fisher_with_options(
             last,
             r0,
             w: r1 - r0,
-            q,
+            q: qoff[nf],
+            qoff,
             active_fields: active_fields(l0, l1),
             u,
             v,
@@ -195,12 +198,13 @@ pub fn cmb_fisher_with_options(
     if std::env::var_os("NGREACH_DEBUG_ACTIVE").is_some() {
         for b in &blocks {
             eprintln!(
-                "block l {}..={}: radial {}..{} rank {}",
+                "block l {}..={}: radial {}..{} rank {} (per field {:?})",
                 b.l0,
                 b.l1,
                 b.r0,
                 b.r0 + b.w,
-                b.q
+                b.q,
+                b.qoff.windows(2).map(|x| x[1] - x[0]).collect::<Vec<_>>()
             );
         }
     }
@@ -211,7 +215,7 @@ pub fn cmb_fisher_with_options(
     // blocks up to the split on the full radial range with a small mu rule, pass 2 all
     // blocks on the core radial range with the full rule.
     let split = if opts.split {
-        choose_split(&blocks, &grid, n_r, n_pairs, n_tr, nf, lmax)
+        choose_split(&blocks, &grid, n_r, n_pairs, n_tr, lmax)
     } else {
         None
     };
@@ -281,13 +285,13 @@ pub fn cmb_fisher_with_options(
                     let blk = &blocks[g.b1 - 1];
                     if outputs(g.b1 - 1) {
                         let base = (fs * n_slot + blk.seg) * n_tr;
-                        sc.refresh_transposes((c0, c1));
+                        sc.complete((c0, c1));
                         sc.triples(&legs, w_r, (c0, c1), wmu, &mut acc[base..base + n_tr]);
                     }
                     if g.b1 == pass.blocks.end {
                         if let Some((k0, k1)) = pass.outside {
                             let base = (fs * n_slot + nm) * n_tr;
-                            sc.refresh_transposes((0, n_r));
+                            sc.complete((0, n_r));
                             let out = &mut acc[base..base + n_tr];
                             sc.triples(&legs, w_r, (0, n_r), wmu, out);
                             sc.triples(&legs, w_r, (k0, k1), -wmu, out);
@@ -299,11 +303,12 @@ pub fn cmb_fisher_with_options(
         let mk_scratch = || {
             Scratch::new(
                 lmax,
-                (nf * max_q, max_nb),
+                (max_q, max_nb),
                 (max_k, max_wg),
                 ne,
                 n_r,
                 &needs_t,
+                &symmetric,
             )
         };
         let gl = GaussLegendre::new(pass.n_mu);
@@ -338,12 +343,10 @@ pub fn cmb_fisher_with_options(
         // Operation counts.
         for fs in 0..nfs {
             for g in &groups {
-                let wg = (g.a1 - g.a0) as f64;
-                gemm_flops += pass.n_mu as f64 * 2.0 * n_pairs as f64 * wg * wg * g.k[fs] as f64;
+                gemm_flops += pass.n_mu as f64 * s_update_flops(g.a1 - g.a0, g.k[fs], &pairs);
                 for b in &blocks[g.b0..g.b1] {
                     let w = (b.r0 + b.w).min(c1).saturating_sub(b.r0.max(c0)) as f64;
-                    let (f_lo, f_hi) = b.active_fields[fs];
-                    let nq = ((f_hi - f_lo) * b.q) as f64;
+                    let nq = b.rows(b.active_fields[fs]).len() as f64;
                     let nb = (b.l1 + 1).saturating_sub(b.l0) as f64;
                     gemm_flops += pass.n_mu as f64 * 2.0 * (ne as f64 * nq * nq * w + nb * nq * nq);
                 }
@@ -449,13 +452,12 @@ fn choose_split(
     n_r: usize,
     n_pairs: usize,
     n_tr: usize,
-    nf: usize,
     lmax: usize,
 ) -> Option<(usize, (usize, usize))> {
     let n_mu = |l: usize| ((3 * l).div_ceil(2) + 1) as f64;
     let block_cost = |b: &LBlock, c0: usize, c1: usize| -> f64 {
         let w = (b.r0 + b.w).min(c1).saturating_sub(b.r0.max(c0)) as f64;
-        let nq = (nf * b.q) as f64;
+        let nq = b.q as f64;
         2.0 * n_pairs as f64 * w * w * nq
     };
     let triple_cost = |w: usize| (4 * n_tr * w * w) as f64;

@@ -62,14 +62,13 @@ pub(super) fn make_groups(
                 .collect();
             k[fs] = rows
                 .iter()
-                .map(|(b, _)| (b.active_fields[fs].1 - b.active_fields[fs].0) * b.q)
+                .map(|(b, _)| b.rows(b.active_fields[fs]).len())
                 .sum();
             for (e, ve) in v[fs].iter_mut().enumerate() {
                 *ve = vec![0.0; k[fs] * wg];
                 let mut koff = 0;
                 for &(b, (ba0, ba1)) in &rows {
-                    let (f_lo, f_hi) = b.active_fields[fs];
-                    for row in f_lo * b.q..f_hi * b.q {
+                    for row in b.rows(b.active_fields[fs]) {
                         let src = &b.v[e][row * b.w + (ba0 - b.r0)..row * b.w + (ba1 - b.r0)];
                         ve[koff * wg + (ba0 - a0)..koff * wg + (ba1 - a0)].copy_from_slice(src);
                         koff += 1;
@@ -91,30 +90,36 @@ pub(super) fn make_groups(
 }
 
 /// M of one block at one mu node for field set `fs` (into `sc.m`, nq x nq with
-/// nq = active fields x rank): M_{f,f'} = U^T Z_{f,f'} with
-/// Z_{f,f'}[l] = (2l+1) P_l(mu) C^-1_{l,ff'} U_l, as matrix products. Returns nq.
+/// nq = Sum over the active fields of q_f): M_{f,f'} = U_f^T Z_{f,f'} with
+/// Z_{f,f'}[l] = (2l+1) P_l(mu) C^-1_{l,ff'} U_{f',l}, as matrix products. Returns nq.
 fn block_m(plan: &BispectrumPlan, blk: &LBlock, fs: usize, sc: &mut Scratch) -> usize {
-    let q = blk.q;
     let (f_lo, f_hi) = blk.active_fields[fs];
-    let nq = (f_hi - f_lo) * q;
+    let base = blk.rows((f_lo, f_hi)).start;
+    let nq = blk.rows((f_lo, f_hi)).len();
     let nb = blk.l1 - blk.l0 + 1;
     let m = &mut sc.m[..nq * nq];
     for f in f_lo..f_hi {
+        let qf = blk.qoff[f + 1] - blk.qoff[f];
+        if qf == 0 {
+            continue;
+        }
         let z = &mut sc.z[..nb * nq];
         for (li, l) in (blk.l0..=blk.l1).enumerate() {
             let s = (2 * l + 1) as f64 * sc.pl[l];
             let ci = &plan.cinv[fs][l];
-            let ul = &blk.u[li * q..(li + 1) * q];
             for fp in f_lo..f_hi {
+                let qp = blk.qoff[fp + 1] - blk.qoff[fp];
                 let c = s * cinv_entry(ci, plan.fields[f], plan.fields[fp]);
-                let dst = &mut z[li * nq + (fp - f_lo) * q..li * nq + (fp - f_lo + 1) * q];
-                for (d, &u) in dst.iter_mut().zip(ul) {
+                let ul = &blk.u[fp][li * qp..(li + 1) * qp];
+                let o = li * nq + blk.qoff[fp] - base;
+                for (d, &u) in z[o..o + qp].iter_mut().zip(ul) {
                     *d = c * u;
                 }
             }
         }
-        let mf = &mut m[(f - f_lo) * q * nq..(f - f_lo + 1) * q * nq];
-        crate::numerics::gemm::gemm(q, nb, nq, &blk.u, (1, q), z, (nq, 1), 0.0, mf, (nq, 1));
+        let r0 = blk.qoff[f] - base;
+        let mf = &mut m[r0 * nq..(r0 + qf) * nq];
+        crate::numerics::gemm::gemm(qf, nb, nq, &blk.u[f], (1, qf), z, (nq, 1), 0.0, mf, (nq, 1));
     }
     nq
 }
@@ -154,7 +159,7 @@ pub(super) fn group_update(
         let wc = ba1 - ba0;
         // V_b restricted: rows f_lo q .. f_hi q, columns ba0 - r0 .. ba1 - r0 (leading
         // dim w); W rows koff .. koff + nq, columns ba0 - a0 .. (leading dim wg).
-        let off = f_lo * blk.q * blk.w + (ba0 - blk.r0);
+        let off = blk.qoff[f_lo] * blk.w + (ba0 - blk.r0);
         for b in 0..ne {
             let vb = &blk.v[b][off..];
             let wb = &mut sc.wseg[b][koff * wg + (ba0 - g.a0)..];
@@ -173,22 +178,58 @@ pub(super) fn group_update(
         }
         koff += nq;
     }
-    // S_ab[a0.., a0..] += V_a^T W_b.
+    // S_ab[a0.., a0..] += V_a^T W_b. S_aa is symmetric: only its upper triangle is
+    // accumulated, in row strips that start at the diagonal ([`Scratch::complete`]
+    // mirrors it before the triple products).
     for (ip, &(a, b)) in pairs.iter().enumerate() {
-        let s = &mut sc.s[ip][g.a0 * n_r + g.a0..];
-        crate::numerics::gemm::gemm(
-            wg,
-            kk,
-            wg,
-            &g.v[fs][a],
-            (1, wg),
-            &sc.wseg[b][..kk * wg],
-            (wg, 1),
-            1.0,
-            s,
-            (n_r, 1),
-        );
+        let strips = if a == b { sym_strips(wg) } else { 1 };
+        for i in 0..strips {
+            let (r0, r1) = (i * wg / strips, (i + 1) * wg / strips);
+            let c0 = if a == b { r0 } else { 0 };
+            let s = &mut sc.s[ip][(g.a0 + r0) * n_r + g.a0 + c0..];
+            crate::numerics::gemm::gemm(
+                r1 - r0,
+                kk,
+                wg - c0,
+                &g.v[fs][a][r0..],
+                (1, wg),
+                &sc.wseg[b][c0..kk * wg],
+                (wg, 1),
+                1.0,
+                s,
+                (n_r, 1),
+            );
+        }
     }
+}
+
+/// Flops of the S updates of one group ([`group_update`]'s products V_a^T W_b) of
+/// width `wg` and inner dimension `kk`.
+pub(super) fn s_update_flops(wg: usize, kk: usize, pairs: &[(usize, usize)]) -> f64 {
+    pairs
+        .iter()
+        .map(|&(a, b)| {
+            if a != b {
+                return (wg * wg) as f64;
+            }
+            let p = sym_strips(wg);
+            (0..p)
+                .map(|i| {
+                    let (r0, r1) = (i * wg / p, (i + 1) * wg / p);
+                    ((r1 - r0) * (wg - r0)) as f64
+                })
+                .sum()
+        })
+        .sum::<f64>()
+        * 2.0
+        * kk as f64
+}
+
+/// Row strips of the upper-triangle product of a symmetric S over a width `wg`: p strips
+/// do (p + 1) / (2 p) of the full product's work; strips of at least 24 rows keep the
+/// products efficient.
+fn sym_strips(wg: usize) -> usize {
+    (wg / 24).clamp(1, 4)
 }
 
 /// Side of the square tiles of the blocked transposes.
@@ -206,6 +247,7 @@ impl Scratch {
         ne: usize,
         n_r: usize,
         needs_t: &[bool],
+        sym: &[bool],
     ) -> Self {
         Self {
             pl: vec![0.0; lmax + 1],
@@ -218,6 +260,7 @@ impl Scratch {
                 .map(|&t| if t { vec![0.0; n_r * n_r] } else { Vec::new() })
                 .collect(),
             tsum: Vec::new(),
+            sym: sym.to_vec(),
             n_r,
         }
     }
@@ -232,9 +275,24 @@ impl Scratch {
         }
     }
 
-    /// Transposes of the S matrices that have one on [c0, c1)^2 (blocked in tiles).
-    pub(super) fn refresh_transposes(&mut self, (c0, c1): (usize, usize)) {
+    /// Makes the S matrices ready for the triple products on [c0, c1)^2: the symmetric
+    /// ones (accumulated on their upper triangle only) get their lower triangle mirrored,
+    /// and the transposes that some triple uses are refreshed (both blocked in tiles).
+    pub(super) fn complete(&mut self, (c0, c1): (usize, usize)) {
         let n_r = self.n_r;
+        for (s, _) in self.s.iter_mut().zip(&self.sym).filter(|x| *x.1) {
+            for i0 in (c0..c1).step_by(TILE) {
+                let i1 = (i0 + TILE).min(c1);
+                for j0 in (c0..i1).step_by(TILE) {
+                    let j1 = (j0 + TILE).min(c1);
+                    for ir in i0..i1 {
+                        for jr in j0..j1.min(ir) {
+                            s[ir * n_r + jr] = s[jr * n_r + ir];
+                        }
+                    }
+                }
+            }
+        }
         for (st, s) in self.st.iter_mut().zip(&self.s) {
             if st.is_empty() {
                 continue;
@@ -373,6 +431,8 @@ pub(super) struct Scratch {
     st: Vec<Vec<f64>>,
     /// Partial sums of the triple products.
     tsum: Vec<f64>,
+    /// Per exponent pair: symmetric (S_aa; upper triangle accumulated only).
+    sym: Vec<bool>,
     n_r: usize,
 }
 

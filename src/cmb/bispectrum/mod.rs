@@ -179,6 +179,8 @@ pub struct EngineOptions {
     pub tol: f64,
     /// Allow the low-l / high-l split (exact; off only to test it).
     pub split: bool,
+    /// Largest number of multipoles in one compressed block.
+    pub block: usize,
 }
 
 impl Default for EngineOptions {
@@ -186,6 +188,7 @@ impl Default for EngineOptions {
         Self {
             tol: DEFAULT_COMPRESSION_TOL,
             split: true,
+            block: BLOCK,
         }
     }
 }

@@ -97,6 +97,7 @@ fn local_t_plan(
 const EXACT: EngineOptions = EngineOptions {
     tol: 0.0,
     split: false,
+    block: super::BLOCK,
 };
 
 const ALL_FIELD_SETS: [FieldSet; 3] = [FieldSet::T, FieldSet::E, FieldSet::TE];
