@@ -245,6 +245,13 @@ fn tau_nl_figures_are_in_the_page() {
         );
     }
     assert!(html.contains("<figure id=\"sigma_vs_kmax_tau_nl\">"));
+    // The tau_NL figure tables follow --tables like every other table.
+    assert!(
+        files_with(&out, "csv").is_empty(),
+        "CSV written with --tables ecsv"
+    );
+    let tau = std::fs::read_to_string(out.join("sigma_vs_kmax_tau_nl.ecsv")).unwrap();
+    assert!(tau.starts_with("# %ECSV 1.0") && tau.contains("kmax_h_mpc"));
     let lmax_tau = html
         .match_indices("<figure id=\"sigma_vs_lmax_")
         .filter(|(i, _)| html[*i..].split('>').next().unwrap().ends_with("_tau_nl\""))

@@ -284,26 +284,6 @@ fn inputs_json(r: &RunResult) -> Value {
     })
 }
 
-/// A CSV text with exactly one header row (no comment lines; notes go to tables.json).
-pub(crate) fn csv_text(header: &[&str], _notes: &[&str], rows: &[Vec<String>]) -> String {
-    let mut s = header.join(",");
-    s.push('\n');
-    for r in rows {
-        s.push_str(&r.join(","));
-        s.push('\n');
-    }
-    s
-}
-
-/// A number for a CSV cell (an empty cell when not finite).
-pub(crate) fn fmt_value(x: f64) -> String {
-    if x.is_finite() {
-        format!("{x}")
-    } else {
-        String::new()
-    }
-}
-
 /// A file-name-safe version of a label.
 pub fn slug(s: &str) -> String {
     let mut out = String::new();
@@ -394,7 +374,13 @@ pub fn write_outputs_with(r: &RunResult, dir: &Path, opts: &OutputOptions) -> Re
         dir,
         opts.tables,
     )?);
-    crate::report::tau_outputs::write_outputs(r, dir, &mut written, &mut svgs)?;
+    let tau_tables = crate::report::tau_outputs::write_outputs(
+        r,
+        dir,
+        (opts.tables, &prov),
+        &mut written,
+        &mut svgs,
+    )?;
     if sc.output.latex {
         put("table.tex", latex_table(r).as_bytes(), &mut written)?;
     }
@@ -405,7 +391,9 @@ pub fn write_outputs_with(r: &RunResult, dir: &Path, opts: &OutputOptions) -> Re
     sidecar["tables"] = json!(
         artifacts
             .iter()
-            .map(|a| a.table.describe(opts.tables))
+            .map(|a| &a.table)
+            .chain(&tau_tables)
+            .map(|t| t.describe(opts.tables))
             .collect::<Vec<_>>()
     );
     sidecar["fisher_matrices"] = json!(format!("{}/index.json", crate::report::matrices::FOLDER));

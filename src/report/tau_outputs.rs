@@ -12,7 +12,8 @@ use crate::combine::{crossover, improvement, log_slopes, tau_joint};
 use crate::error::Result;
 use crate::pipeline::{CmbResult, RunResult};
 use crate::report::figures::{Band, Figure, LinePlot, Series, write_figure};
-use crate::report::outputs::{csv_text, fmt_value, slug};
+use crate::report::outputs::slug;
+use crate::report::table::{Cell, Column, Table, TableFormat};
 use crate::report::{format_sig, num, write_atomic};
 use crate::shapes::{Shape, TAU_NL};
 
@@ -155,12 +156,14 @@ pub fn summary_block(r: &RunResult) -> Value {
 pub fn write_outputs(
     r: &RunResult,
     dir: &Path,
+    (format, prov): (TableFormat, &Value),
     written: &mut Vec<String>,
     figures: &mut Vec<(String, String, String)>,
-) -> Result<()> {
+) -> Result<Vec<Table>> {
     let sc = &r.scenario;
+    let mut tables = Vec::new();
     if !sc.tau_nl {
-        return Ok(());
+        return Ok(tables);
     }
     let mut put = |name: &str, bytes: &[u8]| -> Result<()> {
         write_atomic(&dir.join(name), bytes)?;
@@ -181,10 +184,10 @@ pub fn write_outputs(
             .collect();
         for &(k, v) in &pts {
             rows.push(vec![
-                s.survey.name.clone(),
+                Cell::Text(s.survey.name.clone()),
                 "P".into(),
-                fmt_value(k),
-                fmt_value(v),
+                Cell::Float(k),
+                Cell::Float(v),
             ]);
         }
         series.push(Series {
@@ -212,16 +215,16 @@ pub fn write_outputs(
             colour: 5 + ic,
         });
         rows.push(vec![
-            format!("CMB {}", c.experiment.name),
+            Cell::Text(format!("CMB {}", c.experiment.name)),
             "T+E".into(),
-            "".into(),
-            fmt_value(lo),
+            Cell::Float(f64::NAN),
+            Cell::Float(lo),
         ]);
         rows.push(vec![
-            format!("CMB {}", c.experiment.name),
+            Cell::Text(format!("CMB {}", c.experiment.name)),
             "T".into(),
-            "".into(),
-            fmt_value(hi),
+            Cell::Float(f64::NAN),
+            Cell::Float(hi),
         ]);
     }
     let free = crate::report::figures::band_colours(&series, bands.len());
@@ -229,15 +232,23 @@ pub fn write_outputs(
         b.colour = c;
     }
     let stem = format!("sigma_vs_kmax_{}", slug(TAU_NL));
-    put(
-        &format!("{stem}.csv"),
-        csv_text(
-            &["source", "probe", "kmax_h_mpc", "sigma_marginal"],
-            &["sigma(tau_NL); survey rows marginalized over f_NL local (power spectra, Gaussian covariance); CMB rows at the largest l_max (collapsed trispectrum)", NOTES[0]],
-            &rows,
-        )
-        .as_bytes(),
-    )?;
+    let mut t = Table::new(
+        &stem,
+        "sigma(tau_NL); survey rows marginalized over f_NL local (power spectra, Gaussian covariance); CMB rows at the largest l_max (collapsed trispectrum), empty k_max",
+        vec![
+            Column::new("source", "survey, or CMB experiment"),
+            Column::new(
+                "probe",
+                "P: the survey's power spectra; T+E or T: the CMB fields",
+            ),
+            Column::new("kmax_h_mpc", "k_max of the survey rows"),
+            Column::new("sigma_marginal", "sigma(tau_NL)"),
+        ],
+    );
+    t.notes = vec![NOTES[0].into(), NOTES[1].into(), NOTES[2].into()];
+    rows.into_iter().for_each(|row| t.push(row));
+    put(&t.file_name(format), t.render(format, prov).as_bytes())?;
+    tables.push(t);
     if !series.is_empty() {
         figs.push((
             stem,
@@ -264,9 +275,9 @@ pub fn write_outputs(
             for m in 0..lm.len() {
                 rows.push(vec![
                     fs.label().into(),
-                    fmt_value(lm[m]),
-                    fmt_value(sig[m]),
-                    fmt_value(slope[m]),
+                    Cell::Int(t.lmax[m] as i64),
+                    Cell::Float(sig[m]),
+                    Cell::Float(slope[m]),
                 ]);
             }
             top.push(Series {
@@ -287,21 +298,23 @@ pub fn write_outputs(
             slug(&c.experiment.name),
             slug(TAU_NL)
         );
-        put(
-            &format!("{stem}.csv"),
-            csv_text(
-                &["fields", "lmax", "sigma_marginal", "log_slope"],
-                &[
-                    &format!(
-                        "{}: sigma(tau_NL), collapsed trispectrum; log_slope = d ln F / d ln l_max",
-                        c.experiment.name
-                    ),
-                    NOTES[0],
-                ],
-                &rows,
-            )
-            .as_bytes(),
-        )?;
+        let mut tbl = Table::new(
+            &stem,
+            &format!(
+                "{}: sigma(tau_NL), collapsed trispectrum; log_slope = d ln F / d ln l_max",
+                c.experiment.name
+            ),
+            vec![
+                Column::new("fields", "CMB fields"),
+                Column::new("lmax", "l_max"),
+                Column::new("sigma_marginal", "sigma(tau_NL)"),
+                Column::new("log_slope", "d ln F / d ln l_max"),
+            ],
+        );
+        tbl.notes = vec![NOTES[0].into(), NOTES[1].into()];
+        rows.into_iter().for_each(|row| tbl.push(row));
+        put(&tbl.file_name(format), tbl.render(format, prov).as_bytes())?;
+        tables.push(tbl);
         figs.push((
             stem,
             Figure::TwoPanel(
@@ -338,7 +351,7 @@ pub fn write_outputs(
             figures.push((stem, svg, caption));
         }
     }
-    Ok(())
+    Ok(tables)
 }
 
 /// Terminal lines: per survey, sigma(tau_NL) of each CMB experiment (T+E, largest
