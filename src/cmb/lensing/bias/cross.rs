@@ -48,32 +48,35 @@ struct LBlock {
 }
 
 /// The active radial range [r0, r1) at each l (empty below l = 2).
-fn active_ranges(plan: &BispectrumPlan, nl: usize) -> Vec<(usize, usize)> {
+fn active_ranges(plan: &BispectrumPlan, nl: usize, parallel: bool) -> Vec<(usize, usize)> {
     let nr = plan.n_radial();
     let (ne, nf) = (plan.exponents().len(), plan.n_fields());
-    (0..nl)
-        .map(|l| {
-            if l < 2 {
-                return (0, 0);
-            }
-            let (mut r0, mut r1) = (nr, 0);
-            for e in 0..ne {
-                for f in 0..nf {
-                    let peak = (0..nr)
-                        .map(|ir| plan.radial_function(e, f, l, ir).abs())
-                        .fold(0.0, f64::max);
-                    let cut = ACTIVE_TOL * peak;
-                    for ir in 0..nr {
-                        if plan.radial_function(e, f, l, ir).abs() >= cut && peak > 0.0 {
-                            r0 = r0.min(ir);
-                            r1 = r1.max(ir + 1);
-                        }
+    let range = |l: usize| {
+        if l < 2 {
+            return (0, 0);
+        }
+        let (mut r0, mut r1) = (nr, 0);
+        for e in 0..ne {
+            for f in 0..nf {
+                let peak = (0..nr)
+                    .map(|ir| plan.radial_function(e, f, l, ir).abs())
+                    .fold(0.0, f64::max);
+                let cut = ACTIVE_TOL * peak;
+                for ir in 0..nr {
+                    if peak > 0.0 && plan.radial_function(e, f, l, ir).abs() >= cut {
+                        r0 = r0.min(ir);
+                        r1 = r1.max(ir + 1);
                     }
                 }
             }
-            if r0 >= r1 { (0, 0) } else { (r0, r1) }
-        })
-        .collect()
+        }
+        if r0 >= r1 { (0, 0) } else { (r0, r1) }
+    };
+    if parallel {
+        (0..nl).into_par_iter().map(range).collect()
+    } else {
+        (0..nl).map(range).collect()
+    }
 }
 
 /// The blocks of the l sums, in l order within each grid segment; `edges[m]..edges[m+1]`
@@ -117,6 +120,7 @@ fn weights(
     isw: &IswLensingBispectrum,
     ifs: usize,
     nl: usize,
+    parallel: bool,
 ) -> Option<Weights> {
     let fs = plan.field_sets()[ifs];
     let fields = plan.fields();
@@ -157,22 +161,36 @@ fn weights(
     let (cq, cp) = (nr * nq, nr * np);
     let mut wq = vec![0.0; nl * cq];
     let mut wp = vec![0.0; nl * cp];
-    let mut xs = vec![0.0; fields.len()];
-    for l in 2..nl {
+    let row = |(l, (wq, wp)): (usize, (&mut [f64], &mut [f64]))| {
+        if l < 2 {
+            return;
+        }
         let two_l1 = (2 * l + 1) as f64;
+        let mut xs = [0.0; 2];
         for ir in 0..nr {
             for e in 0..ne {
-                for (f, x) in xs.iter_mut().enumerate() {
+                for (f, x) in xs.iter_mut().enumerate().take(fields.len()) {
                     *x = plan.radial_function(e, f, l, ir);
                 }
                 let dot = |w: &[f64; 2]| -> f64 { xs.iter().zip(w).map(|(x, w)| x * w).sum() };
-                wq[l * cq + ir * nq + e] = two_l1 * dot(&wa[l]);
+                wq[ir * nq + e] = two_l1 * dot(&wa[l]);
                 for iz in 0..nz {
-                    wq[l * cq + ir * nq + ne + e * nz + iz] = two_l1 * dot(&wd[l][iz]);
-                    wp[l * cp + ir * np + e * nz + iz] = two_l1 * dot(&wc[l][iz]);
+                    wq[ir * nq + ne + e * nz + iz] = two_l1 * dot(&wd[l][iz]);
+                    wp[ir * np + e * nz + iz] = two_l1 * dot(&wc[l][iz]);
                 }
             }
         }
+    };
+    if parallel {
+        wq.par_chunks_mut(cq)
+            .zip(wp.par_chunks_mut(cp))
+            .enumerate()
+            .for_each(row);
+    } else {
+        wq.chunks_mut(cq)
+            .zip(wp.chunks_mut(cp))
+            .enumerate()
+            .for_each(row);
     }
     Some(Weights { nz, nq, np, wq, wp })
 }
@@ -212,13 +230,15 @@ pub(super) fn cross_terms_with_rule(
     let nl = lmax + 1;
     let ne = plan.exponents().len();
     let nr = plan.n_radial();
-    let ws: Vec<Option<Weights>> = (0..nfs).map(|ifs| weights(plan, isw, ifs, nl)).collect();
+    let ws: Vec<Option<Weights>> = (0..nfs)
+        .map(|ifs| weights(plan, isw, ifs, nl, parallel))
+        .collect();
     if ws.iter().all(Option::is_none) {
         return vec![vec![vec![0.0; ns]; nm]; nfs];
     }
     let mut edges = vec![2usize];
     edges.extend(grid.iter().map(|&g| g + 1));
-    let blocks = l_blocks(&edges, &active_ranges(plan, nl));
+    let blocks = l_blocks(&edges, &active_ranges(plan, nl, parallel));
     let n_mu = gl.len();
     let radial_w = &radial.w;
     // Mirror symmetry of the Gauss-Legendre rule: mu and -mu carry the same weight, and
@@ -273,12 +293,24 @@ pub(super) fn cross_terms_with_rule(
             gradient_legendre_all(lmax, mu, &mut qm[i * nl..(i + 1) * nl]);
         }
         let mut out = vec![vec![vec![0.0; ns]; nm]; nfs];
-        let mut tri = Triple::new(radial_w, ne, &pairs, &terms);
+        // Gauss-Legendre weights of the nodes mu and of their mirrors -mu (none for the
+        // middle node mu = 0 of an odd rule).
+        let wplus = &gl.weights[c0..c1];
+        let wminus: Vec<f64> = (c0..c1)
+            .map(|node| {
+                if n_mu % 2 == 1 && node == first_pos {
+                    0.0
+                } else {
+                    gl.weights[node]
+                }
+            })
+            .collect();
+        let mut tri = Triple::new(radial_w, ne, nb, &pairs, &terms, [wplus, &wminus]);
         for (w, out) in ws.iter().zip(out.iter_mut()) {
             let Some(w) = w else { continue };
             let (nq, np) = (w.nq, w.np);
             let (cq, cp) = (nr * nq, nr * np);
-            // [even l, odd l] partial sums.
+            // [even l, odd l] partial sums, column-major: (node i, column c) at c * nb + i.
             let mut sq = [vec![0.0; nb * cq], vec![0.0; nb * cq]];
             let mut sp = [vec![0.0; nb * cp], vec![0.0; nb * cp]];
             let mut bi = 0;
@@ -296,8 +328,8 @@ pub(super) fn cross_terms_with_rule(
                         &w.wq[f * cq + b.r0 * nq..],
                         (2 * cq, 1),
                         1.0,
-                        &mut sq[b.par][b.r0 * nq..],
-                        (cq, 1),
+                        &mut sq[b.par][b.r0 * nq * nb..],
+                        (1, nb),
                     );
                     gemm(
                         nb,
@@ -308,25 +340,15 @@ pub(super) fn cross_terms_with_rule(
                         &w.wp[f * cp + b.r0 * np..],
                         (2 * cp, 1),
                         1.0,
-                        &mut sp[b.par][b.r0 * np..],
-                        (cp, 1),
+                        &mut sp[b.par][b.r0 * np * nb..],
+                        (1, nb),
                     );
                 }
                 let (r0, r1) = reach[m];
                 if r0 >= r1 {
                     continue;
                 }
-                for i in 0..nb {
-                    let node = c0 + i;
-                    let wmu = gl.weights[node];
-                    let q = [&sq[0][i * cq..(i + 1) * cq], &sq[1][i * cq..(i + 1) * cq]];
-                    let p = [&sp[0][i * cp..(i + 1) * cp], &sp[1][i * cp..(i + 1) * cp]];
-                    // +mu, and -mu (not for the middle node mu = 0 of an odd rule).
-                    tri.add(w, q, p, 1.0, (r0, r1), wmu, out_m);
-                    if !(n_mu % 2 == 1 && node == first_pos) {
-                        tri.add(w, q, p, -1.0, (r0, r1), wmu, out_m);
-                    }
-                }
+                tri.add(w, [&sq[0], &sq[1]], [&sp[0], &sp[1]], (r0, r1), out_m);
             }
         }
         out
@@ -351,21 +373,25 @@ pub(super) fn cross_terms_with_rule(
     total
 }
 
-/// The triple products of one mu node: Sum_r w_r Sum_t c_t A_{e0}(r) Sum_z B^z_{e1}(r)
-/// C^z_{e2}(r) per shape, vectorized over r (the sums are transposed to r innermost).
+/// The triple products of a block of mu nodes and their mirrors:
+/// Sum_r w_r Sum_t c_t A_{e0}(r) Sum_z B^z_{e1}(r) C^z_{e2}(r) per shape, vectorized over
+/// the nodes.
 struct Triple<'a> {
     radial_w: &'a [f64],
     ne: usize,
+    nb: usize,
     pairs: &'a [(usize, usize)],
     terms: &'a [Vec<(f64, usize, usize)>],
-    /// w_r A_e(r), [e][r].
-    wa: Vec<f64>,
-    /// B^z_e(r) and C^z_e(r), [e][z][r].
+    /// Gauss-Legendre weights of the nodes +mu and -mu.
+    wmu: [&'a [f64]; 2],
+    /// w_r A_e, [e][node].
+    a: Vec<f64>,
+    /// B^z_e and C^z_e, [e][z][node].
     b: Vec<f64>,
     c: Vec<f64>,
-    /// Sum_z B^z_{e1} C^z_{e2} per exponent pair, [pair][r].
+    /// Sum_z B^z_{e1} C^z_{e2} per exponent pair, [pair][node].
     bc: Vec<f64>,
-    /// One shape's sum over terms, [r].
+    /// Per shape, the sums over r and terms, [shape][node].
     acc: Vec<f64>,
 }
 
@@ -373,83 +399,106 @@ impl<'a> Triple<'a> {
     fn new(
         radial_w: &'a [f64],
         ne: usize,
+        nb: usize,
         pairs: &'a [(usize, usize)],
         terms: &'a [Vec<(f64, usize, usize)>],
+        wmu: [&'a [f64]; 2],
     ) -> Self {
-        let nr = radial_w.len();
         Self {
             radial_w,
             ne,
+            nb,
             pairs,
             terms,
-            wa: vec![0.0; ne * nr],
-            b: vec![0.0; 2 * ne * nr],
-            c: vec![0.0; 2 * ne * nr],
-            bc: vec![0.0; pairs.len() * nr],
-            acc: vec![0.0; nr],
+            wmu,
+            a: vec![0.0; ne * nb],
+            b: vec![0.0; 2 * ne * nb],
+            c: vec![0.0; 2 * ne * nb],
+            bc: vec![0.0; pairs.len() * nb],
+            acc: vec![0.0; terms.len() * nb],
         }
     }
 
-    /// Adds the node's contribution times `wmu` to `out` (per shape). `q` and `p` are the
-    /// even- and odd-l sums of one node (columns (r, function)); `sign` +1 for the node
-    /// mu, -1 for its mirror -mu; only radial nodes r0..r1 contribute.
-    #[allow(clippy::too_many_arguments)]
+    /// Adds the block's contribution (nodes and mirrors, times their weights) to `out`
+    /// (per shape). `q` and `p` are the even- and odd-l sums (column-major, (node,
+    /// column (r, function)) at column * nb + node); only radial nodes r0..r1 contribute.
     fn add(
         &mut self,
         w: &Weights,
         q: [&[f64]; 2],
         p: [&[f64]; 2],
-        sign: f64,
         (r0, r1): (usize, usize),
-        wmu: f64,
         out: &mut [f64],
     ) {
-        let (ne, nz, nq, np) = (self.ne, w.nz, w.nq, w.np);
-        let n = r1 - r0;
-        // Q_l(-mu) = (-1)^(l+1) Q_l(mu), P_l(-mu) = (-1)^l P_l(mu).
-        let (qe, qo) = if sign > 0.0 { (1.0, 1.0) } else { (-1.0, 1.0) };
-        let (pe, po) = if sign > 0.0 { (1.0, 1.0) } else { (1.0, -1.0) };
-        for (j, ir) in (r0..r1).enumerate() {
-            let (q0, q1) = (&q[0][ir * nq..(ir + 1) * nq], &q[1][ir * nq..(ir + 1) * nq]);
-            let (p0, p1) = (&p[0][ir * np..(ir + 1) * np], &p[1][ir * np..(ir + 1) * np]);
-            let wr = self.radial_w[ir];
-            for e in 0..ne {
-                self.wa[e * n + j] = wr * (qe * q0[e] + qo * q1[e]);
-            }
-            for k in 0..ne * nz {
-                self.b[k * n + j] = qe * q0[ne + k] + qo * q1[ne + k];
-                self.c[k * n + j] = pe * p0[k] + po * p1[k];
-            }
-        }
-        for (k, &(e1, e2)) in self.pairs.iter().enumerate() {
-            let bc = &mut self.bc[k * n..(k + 1) * n];
-            for z in 0..nz {
-                let b = &self.b[(e1 * nz + z) * n..(e1 * nz + z + 1) * n];
-                let c = &self.c[(e2 * nz + z) * n..(e2 * nz + z + 1) * n];
-                if z == 0 {
-                    bc.iter_mut()
-                        .zip(b.iter().zip(c))
-                        .for_each(|(o, (x, y))| *o = x * y);
-                } else {
-                    bc.iter_mut()
-                        .zip(b.iter().zip(c))
-                        .for_each(|(o, (x, y))| *o += x * y);
+        let (ne, nb, nz, nq, np) = (self.ne, self.nb, w.nz, w.nq, w.np);
+        // Q_l(-mu) = (-1)^(l+1) Q_l(mu), P_l(-mu) = (-1)^l P_l(mu): the even-l part of Q
+        // and the odd-l part of P change sign at the mirror node.
+        for (side, wmu) in self.wmu.iter().enumerate() {
+            let s = if side == 0 { 1.0 } else { -1.0 };
+            self.acc.fill(0.0);
+            for ir in r0..r1 {
+                let wr = self.radial_w[ir];
+                for e in 0..ne {
+                    let (qe, qo) = (col(q[0], nb, ir * nq + e), col(q[1], nb, ir * nq + e));
+                    let a = &mut self.a[e * nb..(e + 1) * nb];
+                    for i in 0..nb {
+                        a[i] = wr * (s * qe[i] + qo[i]);
+                    }
+                }
+                for k in 0..ne * nz {
+                    let (qe, qo) = (
+                        col(q[0], nb, ir * nq + ne + k),
+                        col(q[1], nb, ir * nq + ne + k),
+                    );
+                    let (pe, po) = (col(p[0], nb, ir * np + k), col(p[1], nb, ir * np + k));
+                    let b = &mut self.b[k * nb..(k + 1) * nb];
+                    for i in 0..nb {
+                        b[i] = s * qe[i] + qo[i];
+                    }
+                    let c = &mut self.c[k * nb..(k + 1) * nb];
+                    for i in 0..nb {
+                        c[i] = pe[i] + s * po[i];
+                    }
+                }
+                for (k, &(e1, e2)) in self.pairs.iter().enumerate() {
+                    let bc = &mut self.bc[k * nb..(k + 1) * nb];
+                    for z in 0..nz {
+                        let b = &self.b[(e1 * nz + z) * nb..(e1 * nz + z + 1) * nb];
+                        let c = &self.c[(e2 * nz + z) * nb..(e2 * nz + z + 1) * nb];
+                        if z == 0 {
+                            for i in 0..nb {
+                                bc[i] = b[i] * c[i];
+                            }
+                        } else {
+                            for i in 0..nb {
+                                bc[i] += b[i] * c[i];
+                            }
+                        }
+                    }
+                }
+                for (si, ts) in self.terms.iter().enumerate() {
+                    let acc = &mut self.acc[si * nb..(si + 1) * nb];
+                    for &(c, e0, k) in ts {
+                        let a = &self.a[e0 * nb..(e0 + 1) * nb];
+                        let bc = &self.bc[k * nb..(k + 1) * nb];
+                        for i in 0..nb {
+                            acc[i] += c * a[i] * bc[i];
+                        }
+                    }
                 }
             }
-        }
-        let acc = &mut self.acc[..n];
-        for (o, ts) in out.iter_mut().zip(self.terms) {
-            acc.fill(0.0);
-            for &(c, e0, k) in ts {
-                let a = &self.wa[e0 * n..(e0 + 1) * n];
-                let bc = &self.bc[k * n..(k + 1) * n];
-                acc.iter_mut()
-                    .zip(a.iter().zip(bc))
-                    .for_each(|(o, (x, y))| *o += c * x * y);
+            for (si, o) in out.iter_mut().enumerate() {
+                let acc = &self.acc[si * nb..(si + 1) * nb];
+                let v: Vec<f64> = acc.iter().zip(*wmu).map(|(x, y)| x * y).collect();
+                *o += sum4(&v);
             }
-            *o += wmu * sum4(acc);
         }
     }
+}
+
+/// Column c of a column-major matrix with nb rows.
+fn col(x: &[f64], nb: usize, c: usize) -> &[f64] {
+    &x[c * nb..(c + 1) * nb]
 }
 
 /// Sum of a slice with four independent partial sums (vectorizes).
