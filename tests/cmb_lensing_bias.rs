@@ -1,7 +1,7 @@
 //! The ISW-lensing bias of f_NL through the binary: the `cmb` rows and JSON block, and
 //! the published Planck temperature values (long; `#[ignore]`, see README).
 //! The fast sums themselves are checked against the brute-force triple sum in
-//! src/cmb/lensing/bias.rs.
+//! src/cmb/lensing/bias/oracle.rs.
 
 mod common;
 

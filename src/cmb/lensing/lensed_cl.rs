@@ -161,6 +161,40 @@ impl DRecurrence {
         Self { m, n, a, b, c }
     }
 
+    /// d^l_{mn}(mu_i) for the rows l in `ls` and the nodes `mus`, into
+    /// `out[(l - ls.start) * mus.len() + i]`, continuing the recurrence: `prev` holds
+    /// d^{l-2} and then d^{l-1} of every node for the first l of `ls` (any values when it
+    /// is at most max(|m|, |n|) + 1, where the closed forms of [`wigner_d`] start) and the
+    /// last two rows on return. Vectorizes over the nodes.
+    pub(crate) fn fill_rows(
+        &self,
+        mus: &[f64],
+        ls: std::ops::Range<usize>,
+        prev: &mut [f64],
+        out: &mut [f64],
+    ) {
+        let nb = mus.len();
+        let top = self.m.unsigned_abs().max(self.n.unsigned_abs()) as usize + 1;
+        let mut start = vec![0.0; top + 1];
+        let (p2, p1) = prev.split_at_mut(nb);
+        for (r, l) in ls.enumerate() {
+            let row = &mut out[r * nb..(r + 1) * nb];
+            if l <= top {
+                for (v, &mu) in row.iter_mut().zip(mus) {
+                    wigner_d(self.m, self.n, mu, &mut start);
+                    *v = start[l];
+                }
+            } else {
+                let (a, b, c) = (self.a[l - 1], self.b[l - 1], self.c[l - 1]);
+                for (i, v) in row.iter_mut().enumerate() {
+                    *v = (a * mus[i] + c) * p1[i] - b * p2[i];
+                }
+            }
+            p2.copy_from_slice(p1);
+            p1.copy_from_slice(row);
+        }
+    }
+
     /// d^l_{mn}(mu) for l = 0..=lmax into `out` (the start value from [`wigner_d`]).
     pub(crate) fn fill(&self, mu: f64, out: &mut [f64]) {
         let j = self.m.unsigned_abs().max(self.n.unsigned_abs()) as usize;
