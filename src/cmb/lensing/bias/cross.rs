@@ -489,8 +489,7 @@ impl<'a> Triple<'a> {
             }
             for (si, o) in out.iter_mut().enumerate() {
                 let acc = &self.acc[si * nb..(si + 1) * nb];
-                let v: Vec<f64> = acc.iter().zip(*wmu).map(|(x, y)| x * y).collect();
-                *o += sum4(&v);
+                *o += dot4(acc, wmu);
             }
         }
     }
@@ -501,14 +500,20 @@ fn col(x: &[f64], nb: usize, c: usize) -> &[f64] {
     &x[c * nb..(c + 1) * nb]
 }
 
-/// Sum of a slice with four independent partial sums (vectorizes).
-fn sum4(x: &[f64]) -> f64 {
+/// Dot product with four independent partial sums (vectorizes).
+fn dot4(x: &[f64], y: &[f64]) -> f64 {
     let mut s = [0.0; 4];
-    let mut it = x.chunks_exact(4);
-    for c in &mut it {
-        for (a, b) in s.iter_mut().zip(c) {
-            *a += b;
+    let (xc, yc) = (x.chunks_exact(4), y.chunks_exact(4));
+    let tail: f64 = xc
+        .remainder()
+        .iter()
+        .zip(yc.remainder())
+        .map(|(a, b)| a * b)
+        .sum();
+    for (a, b) in xc.zip(yc) {
+        for k in 0..4 {
+            s[k] += a[k] * b[k];
         }
     }
-    (s[0] + s[1]) + (s[2] + s[3]) + it.remainder().iter().sum::<f64>()
+    (s[0] + s[1]) + (s[2] + s[3]) + tail
 }

@@ -34,8 +34,8 @@
 //! N_mu x l_max x (a few hundred) for the self terms. Measured (`cargo bench --bench
 //! lensing_bias`: the full scan of `ngreach cmb --ideal`, T, E and T+E, three shapes,
 //! l_max 500-3000 in one pass, 160 radial nodes, 4501 mu nodes; 2 cores shared with other
-//! work, load average 6-7, so CPU times are quoted): cross terms 1.45 s and self terms
-//! 0.25 s of CPU, both in one pass 1.54 s of CPU (before this layout: 7.3 s of CPU, 6.3 +
+//! work, load average 5, so CPU times are quoted): cross terms 1.36 s and self terms
+//! 0.24 s of CPU, both in one pass 1.44 s of CPU (before this layout: 7.3 s of CPU, 6.3 +
 //! 5.0 s wall at load 7). Skipping the inactive radial nodes moved the cross terms by at
 //! most 2.7e-7 relative (the equilateral ones, small by cancellation; local 2e-9,
 //! orthogonal 3.5e-8) and the self terms by 6e-11.
