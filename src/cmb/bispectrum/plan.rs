@@ -42,113 +42,54 @@ impl BispectrumPlan {
     /// Builds the radial functions X^{p,X}_l(r) and the inverse covariances.
     pub fn new(inp: &CmbFisherInput<'_>) -> Self {
         let t_radial = std::time::Instant::now();
-        let tr = inp.transfer;
-        let lmax = inp
-            .lmax_grid
-            .iter()
-            .copied()
-            .max()
-            .unwrap_or(2)
-            .min(tr.lmax());
-        let n_r = inp.radial.len();
-        // Exponents used by any shape, and the terms as exponent indices.
-        let mut exponents: Vec<f64> = Vec::new();
-        let mut terms = Vec::new();
-        for s in inp.shapes {
-            let sep = s.separable();
-            let mut ts = Vec::new();
-            for t in sep.terms() {
-                let mut idx = [0usize; 3];
-                for (a, &p) in t.powers.iter().enumerate() {
-                    idx[a] = match exponents.iter().position(|&e| (e - p).abs() < 1e-12) {
-                        Some(i) => i,
-                        None => {
-                            exponents.push(p);
-                            exponents.len() - 1
-                        }
-                    };
-                }
-                ts.push((t.coeff, idx));
-            }
-            terms.push(ts);
-        }
-        let fields = tr.fields().to_vec();
-        let nf = fields.len();
-        let ne = exponents.len();
-        let nl = lmax + 1;
-        // X[r][e][f][l], computed per r in parallel (`radial_row_impl`), then transposed.
-        let prim = inp.primordial;
-        // A cosine taper over the last K_TAPER of the k range of a table marked as cut where
-        // the transfer functions are not yet negligible (the Boltzmann tables end at
-        // k chi_* = 2.1 l_max + 600, beyond the 2 l_max that triangles need) makes the
-        // radial functions ring in r, spreading them over the whole radial grid. Measured
-        // at l_max = 1500 (full transfer, T, E, T+E, three shapes): with the taper sigma
-        // stays within 0.1% of a table reaching twice as far, and the engine runs 3x
-        // faster than without it.
-        let k_top = tr.k().last().copied().unwrap_or(1.0);
-        let taper_frac = if tr.k_truncated() { K_TAPER } else { 0.0 };
-        let coefs: Vec<Vec<f64>> = tr
-            .k()
-            .iter()
-            .zip(tr.weights())
-            .map(|(&k, &w)| {
-                let pk = prim.p_phi(k);
-                let k_t = (1.0 - taper_frac) * k_top;
-                let taper = if taper_frac > 0.0 && k > k_t {
-                    0.5 * (1.0 + (std::f64::consts::PI * (k - k_t) / (k_top - k_t)).cos())
-                } else {
-                    1.0
-                };
-                exponents
-                    .iter()
-                    .map(|&p| 2.0 / std::f64::consts::PI * w * taper * k * k * pk.powf(p))
-                    .collect()
-            })
-            .collect();
-        let ctx = RadialCtx {
-            tr,
-            coefs: &coefs,
-            r: &inp.radial.r,
-            lmax,
-        };
-        let per_r = |ir: usize| -> Vec<f64> {
-            let mut out = vec![0.0; ne * nf * nl];
-            super::simd::radial_row(&ctx, ir, &mut out);
-            out
-        };
-        let rows: Vec<Vec<f64>> = if inp.parallel {
-            (0..n_r).into_par_iter().map(per_r).collect()
-        } else {
-            (0..n_r).map(per_r).collect()
-        };
-        let mut x = vec![vec![vec![0.0; nl * n_r]; nf]; ne];
-        for (ir, row) in rows.iter().enumerate() {
-            for e in 0..ne {
-                for f in 0..nf {
-                    let src = &row[(e * nf + f) * nl..(e * nf + f + 1) * nl];
-                    for l in 0..nl {
-                        x[e][f][l * n_r + ir] = src[l];
-                    }
-                }
-            }
-        }
-        let radial_s = t_radial.elapsed().as_secs_f64();
+        let layout = PlanLayout::of(inp);
+        let coefs = radial_coefs(inp, &layout.exponents);
+        let x = compute_radial(inp, &layout, &coefs);
+        Self::assemble(inp, layout, x, t_radial.elapsed().as_secs_f64())
+    }
+
+    /// [`BispectrumPlan::new`] with the radial functions read from the on-disk cache of
+    /// `cache` (the transfer tables' folder) when a trusted file exists, otherwise
+    /// computed and stored there (see [`super::radial_cache`]). Cache problems are never
+    /// errors: they show in the returned status.
+    pub fn new_cached(
+        inp: &CmbFisherInput<'_>,
+        cache: &crate::cmb::boltzmann::CacheOptions,
+    ) -> (Self, super::radial_cache::RadialCacheStatus) {
+        let t_radial = std::time::Instant::now();
+        let layout = PlanLayout::of(inp);
+        let coefs = radial_coefs(inp, &layout.exponents);
+        let (x, status) = super::radial_cache::cached_radial(inp, &layout, &coefs, cache, || {
+            compute_radial(inp, &layout, &coefs)
+        });
+        let plan = Self::assemble(inp, layout, x, t_radial.elapsed().as_secs_f64());
+        (plan, status)
+    }
+
+    /// The plan from its radial functions `x` (built in `radial_s` seconds): adds the
+    /// inverse covariances.
+    fn assemble(
+        inp: &CmbFisherInput<'_>,
+        layout: PlanLayout,
+        x: RadialFunctions,
+        radial_s: f64,
+    ) -> Self {
         let t_cinv = std::time::Instant::now();
         let cinv = inverse_covariances(
-            tr,
-            &prim,
+            inp.transfer,
+            &inp.primordial,
             inp.experiment,
             inp.t_cmb_k,
             inp.field_sets,
-            lmax,
+            layout.lmax,
             inp.signal_cl,
         );
         Self {
-            lmax,
-            n_r,
-            exponents,
-            terms,
-            fields,
+            lmax: layout.lmax,
+            n_r: inp.radial.len(),
+            exponents: layout.exponents,
+            terms: layout.terms,
+            fields: inp.transfer.fields().to_vec(),
             x: std::sync::Arc::new(x),
             cinv,
             field_sets: inp.field_sets.to_vec(),
@@ -275,12 +216,142 @@ impl BispectrumPlan {
     }
 }
 
+/// X[e][f] is an (lmax+1) x n_r row-major matrix: X^{p_e, field f}_l(r_ir) at
+/// [l n_r + ir].
+pub(super) type RadialFunctions = Vec<Vec<Vec<f64>>>;
+
+/// What the radial functions are computed for: the multipole range and the exponents of
+/// P_Phi that the shapes' separable terms use.
+pub(super) struct PlanLayout {
+    /// The highest multipole (the grid's largest, capped at the table's).
+    pub(super) lmax: usize,
+    /// Distinct exponents p of P_Phi(k)^p over all shapes' terms.
+    pub(super) exponents: Vec<f64>,
+    /// Terms per shape: (coefficient, exponent indices for the three legs).
+    pub(super) terms: Vec<Vec<(f64, [usize; 3])>>,
+}
+
+impl PlanLayout {
+    fn of(inp: &CmbFisherInput<'_>) -> Self {
+        let lmax = inp
+            .lmax_grid
+            .iter()
+            .copied()
+            .max()
+            .unwrap_or(2)
+            .min(inp.transfer.lmax());
+        // Exponents used by any shape, and the terms as exponent indices.
+        let mut exponents: Vec<f64> = Vec::new();
+        let mut terms = Vec::new();
+        for s in inp.shapes {
+            let sep = s.separable();
+            let mut ts = Vec::new();
+            for t in sep.terms() {
+                let mut idx = [0usize; 3];
+                for (a, &p) in t.powers.iter().enumerate() {
+                    idx[a] = match exponents.iter().position(|&e| (e - p).abs() < 1e-12) {
+                        Some(i) => i,
+                        None => {
+                            exponents.push(p);
+                            exponents.len() - 1
+                        }
+                    };
+                }
+                ts.push((t.coeff, idx));
+            }
+            terms.push(ts);
+        }
+        Self {
+            lmax,
+            exponents,
+            terms,
+        }
+    }
+}
+
+/// The k weights of the radial functions, c_e(k) = (2/pi) w_k taper(k) k^2 P_Phi(k)^p_e,
+/// per k node and exponent.
+///
+/// A cosine taper over the last [`K_TAPER`] of the k range of a table marked as cut where
+/// the transfer functions are not yet negligible (the Boltzmann tables end at
+/// k chi_* = 2.1 l_max + 600, beyond the 2 l_max that triangles need) makes the radial
+/// functions ring in r, spreading them over the whole radial grid. Measured at
+/// l_max = 1500 (full transfer, T, E, T+E, three shapes): with the taper sigma stays
+/// within 0.1% of a table reaching twice as far, and the engine runs 3x faster than
+/// without it.
+pub(super) fn radial_coefs(inp: &CmbFisherInput<'_>, exponents: &[f64]) -> Vec<Vec<f64>> {
+    let tr = inp.transfer;
+    let prim = inp.primordial;
+    let k_top = tr.k().last().copied().unwrap_or(1.0);
+    let taper_frac = if tr.k_truncated() { K_TAPER } else { 0.0 };
+    tr.k()
+        .iter()
+        .zip(tr.weights())
+        .map(|(&k, &w)| {
+            let pk = prim.p_phi(k);
+            let k_t = (1.0 - taper_frac) * k_top;
+            let taper = if taper_frac > 0.0 && k > k_t {
+                0.5 * (1.0 + (std::f64::consts::PI * (k - k_t) / (k_top - k_t)).cos())
+            } else {
+                1.0
+            };
+            exponents
+                .iter()
+                .map(|&p| 2.0 / std::f64::consts::PI * w * taper * k * k * pk.powf(p))
+                .collect()
+        })
+        .collect()
+}
+
+/// The radial functions X^{p_e, f}_l(r) for every exponent, field, l <= l_max and radial
+/// node: computed per r (in parallel with `inp.parallel`, [`radial_row_impl`]), then
+/// transposed.
+pub(super) fn compute_radial(
+    inp: &CmbFisherInput<'_>,
+    layout: &PlanLayout,
+    coefs: &[Vec<f64>],
+) -> RadialFunctions {
+    let tr = inp.transfer;
+    let nf = tr.fields().len();
+    let ne = layout.exponents.len();
+    let nl = layout.lmax + 1;
+    let n_r = inp.radial.len();
+    let ctx = RadialCtx {
+        tr,
+        coefs,
+        r: &inp.radial.r,
+        lmax: layout.lmax,
+    };
+    let per_r = |ir: usize| -> Vec<f64> {
+        let mut out = vec![0.0; ne * nf * nl];
+        super::simd::radial_row(&ctx, ir, &mut out);
+        out
+    };
+    let rows: Vec<Vec<f64>> = if inp.parallel {
+        (0..n_r).into_par_iter().map(per_r).collect()
+    } else {
+        (0..n_r).map(per_r).collect()
+    };
+    let mut x = vec![vec![vec![0.0; nl * n_r]; nf]; ne];
+    for (ir, row) in rows.iter().enumerate() {
+        for e in 0..ne {
+            for f in 0..nf {
+                let src = &row[(e * nf + f) * nl..(e * nf + f + 1) * nl];
+                for l in 0..nl {
+                    x[e][f][l * n_r + ir] = src[l];
+                }
+            }
+        }
+    }
+    x
+}
+
 /// Fraction of the transfer table's k range over which the radial functions' k
 /// integrand is tapered to zero (see [`BispectrumPlan::new`]).
-const K_TAPER: f64 = 0.2;
+pub(super) const K_TAPER: f64 = 0.2;
 
 /// Lanes of the fused radial-function kernel.
-const XLANES: usize = 16;
+pub(super) const XLANES: usize = 16;
 
 /// What the radial-function kernel reads.
 pub(super) struct RadialCtx<'a> {
