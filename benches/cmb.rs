@@ -262,7 +262,7 @@ fn main() {
     for (ifs, fs) in fc.field_sets.iter().enumerate() {
         let sig = fc.fisher[ifs].last().expect("grid").sigma_marginal_or_inf();
         println!(
-            "  {:>3} sigma_marginal(local, equilateral, orthogonal) at l_max = {lmax}: {:.4}, {:.3}, {:.3}",
+            "  {:>3} sigma_marginal(local, equilateral, orthogonal) at l_max = {lmax}: {:.7e}, {:.7e}, {:.7e}",
             fs.label(),
             sig[0],
             sig[1],

@@ -3,9 +3,9 @@
 //! The radial functions cost seconds at l_max = 3000 (160 radial nodes x 5000 k nodes x
 //! every l), but they depend only on the transfer table, the primordial spectrum, the
 //! exponents p of the shapes' separable terms, the radial nodes, l_max and the kernel's
-//! own constants ([`K_TAPER`], the l_cut rule, [`XLANES`]), not on the experiment (noise,
-//! beam, f_sky, multipole ranges). A planner that scans many experiments, or re-runs a
-//! scan, reads them from here. They are stored beside the transfer tables as
+//! own constants ([`K_TAPER`], the l_cut rule, [`XLANES`], [`RGROUP`]), not on the
+//! experiment (noise, beam, f_sky, multipole ranges). A planner that scans many
+//! experiments, or re-runs a scan, reads them from here. They are stored beside the transfer tables as
 //! `radial-<key>.bin`, where the key is a 64-bit FNV-1a fingerprint of all those inputs
 //! (the table through its k nodes, weights and a rotating every-16th multipole of every
 //! row; the primordial spectrum, exponents and taper through the k weights c_e(k) they
@@ -36,13 +36,13 @@ use std::io::Write;
 use std::path::{Path, PathBuf};
 
 use super::CmbFisherInput;
-use super::plan::{K_TAPER, PlanLayout, RadialFunctions, XLANES};
+use super::plan::{K_TAPER, PlanLayout, RGROUP, RadialFunctions, XLANES};
 use crate::cmb::boltzmann::{CacheOptions, Fnv1a};
 use crate::cmb::transfer::Field;
 
 const MAGIC: &[u8; 8] = b"NGRRADL1";
 /// Bumped whenever the radial-function kernel changes what it computes.
-const RADIAL_VERSION: u64 = 1;
+const RADIAL_VERSION: u64 = 2;
 const HEADER_LEN: usize = 32;
 /// The radial files in a cache folder are pruned to at most this many bytes (about 30
 /// files at l_max = 3000), least recently used first; the file just written is kept.
@@ -119,6 +119,7 @@ pub(super) fn radial_key(inp: &CmbFisherInput<'_>, layout: &PlanLayout, coefs: &
     h.u64(RADIAL_VERSION);
     h.u64(K_TAPER.to_bits());
     h.u64(XLANES as u64);
+    h.u64(RGROUP as u64);
     // The l_cut rule, sampled: a changed rule changes the key.
     for x in [0.5, 5.0, 50.0, 500.0, 5000.0] {
         h.u64(crate::special::bessel::l_cut(x) as u64);
