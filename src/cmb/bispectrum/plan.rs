@@ -546,7 +546,24 @@ fn radial_lanes(
                 let d1 = &dbuf[g[1] * nl..g[1] * nl + t];
                 let d2 = &dbuf[g[2] * nl..g[2] * nl + t];
                 let d3 = &dbuf[g[3] * nl..g[3] * nl + t];
-                for e in 0..ne {
+                // Two exponents per pass: each d value loaded once for both (same
+                // arithmetic per output as one at a time).
+                let mut e = 0;
+                while e + 1 < ne {
+                    let c = g.map(|g| coefs[lanes[g].ik][e]);
+                    let c2 = g.map(|g| coefs[lanes[g].ik][e + 1]);
+                    let (lo, hi) = out_q.split_at_mut(((e + 1) * nf + f) * nl);
+                    let o = &mut lo[(e * nf + f) * nl..(e * nf + f) * nl + t];
+                    let o2 = &mut hi[..t];
+                    for (((((o, o2), &a), &b), &cc), &d) in
+                        o.iter_mut().zip(o2).zip(d0).zip(d1).zip(d2).zip(d3)
+                    {
+                        *o += (c[0] * a + c[1] * b) + (c[2] * cc + c[3] * d);
+                        *o2 += (c2[0] * a + c2[1] * b) + (c2[2] * cc + c2[3] * d);
+                    }
+                    e += 2;
+                }
+                if e < ne {
                     let c = g.map(|g| coefs[lanes[g].ik][e]);
                     let o = &mut out_q[(e * nf + f) * nl..(e * nf + f) * nl + t];
                     for ((((o, &a), &b), &cc), &d) in o.iter_mut().zip(d0).zip(d1).zip(d2).zip(d3) {
