@@ -519,18 +519,30 @@ fn radial_lanes(
         by_node[lane.q][count[lane.q]] = g;
         count[lane.q] += 1;
     }
-    for f in 0..nf {
-        // d_g(l) = Delta^f_l(k_g) j_l(k_g r_g) for l <= top_g, lanes in k order (a row is
-        // read from memory once for all the nodes of the group).
-        for (g, lane) in lanes.iter().enumerate() {
-            let t = lane.top + 1;
-            let row = &tr.row(f, lane.ik)[..t];
-            let jl = &jbuf[g * nl..g * nl + t];
-            let d = &mut dbuf[g * nl..g * nl + t];
-            for ((d, &t), &j) in d.iter_mut().zip(row).zip(jl) {
-                *d = t * j;
+    // d_g(l) = Delta^f_l(k_g) j_l(k_g r_g) for l <= top_g, lanes in k order (a row is
+    // read from memory once for all the nodes of the group): field 0 into `dbuf`, field
+    // 1 (E; a table has at most T and E) in place of j_l in `jbuf`, both rows of a k in
+    // one pass.
+    debug_assert!(nf <= 2, "a transfer table holds at most T and E");
+    for (g, lane) in lanes.iter().enumerate() {
+        let t = lane.top + 1;
+        let d = &mut dbuf[g * nl..g * nl + t];
+        let jl = &mut jbuf[g * nl..g * nl + t];
+        let r0 = &tr.row(0, lane.ik)[..t];
+        if nf > 1 {
+            let r1 = &tr.row(1, lane.ik)[..t];
+            for (((d, j), &a), &b) in d.iter_mut().zip(jl.iter_mut()).zip(r0).zip(r1) {
+                *d = a * *j;
+                *j *= b;
+            }
+        } else {
+            for ((d, &j), &a) in d.iter_mut().zip(jl.iter()).zip(r0) {
+                *d = a * j;
             }
         }
+    }
+    for f in 0..nf {
+        let dbuf: &mut [f64] = if f == 0 { &mut *dbuf } else { &mut *jbuf };
         for q in 0..n_q {
             let gs = &by_node[q][..count[q]];
             let out_q = &mut out[q * row_len..(q + 1) * row_len];
