@@ -11,7 +11,8 @@
 //!
 //! Prints
 //! - the wall time of each stage: transfer table (cache read), lensed covariance spectra,
-//!   radial functions, inverse covariances (the 2x2 T+E inverse per l), active ranges and
+//!   radial functions (computed, with their CPU time, and read from the radial-function
+//!   cache beside the transfer table: written on the first run), inverse covariances (the 2x2 T+E inverse per l), active ranges and
 //!   compressed bases, mu sums; and the scan total;
 //! - the flop count of the dominant kernel (the blocked matrix products of the mu sums)
 //!   and of the triple products, the achieved rate, and its fraction of the machine's
@@ -90,6 +91,23 @@ fn dgemm_rate(threads: usize) -> f64 {
         .fold(0.0, f64::max)
 }
 
+/// CPU time of this process so far (user + system, all threads), s, from /proc/self/stat
+/// (clock ticks, assumed 100 per second); 0 where unavailable.
+fn cpu_s() -> f64 {
+    let Ok(stat) = std::fs::read_to_string("/proc/self/stat") else {
+        return 0.0;
+    };
+    // Fields after the parenthesized command name: utime and stime are the 12th and 13th.
+    let rest = stat.rsplit_once(')').map_or("", |r| r.1);
+    let f: Vec<f64> = rest
+        .split_whitespace()
+        .skip(11)
+        .take(2)
+        .filter_map(|v| v.parse().ok())
+        .collect();
+    f.iter().sum::<f64>() / 100.0
+}
+
 fn env_usize(name: &str, default: usize) -> usize {
     std::env::var(name)
         .ok()
@@ -140,10 +158,13 @@ fn main() {
     };
     // Engine stages, best of `reps`.
     let mut best = [f64::INFINITY; 5];
+    let mut cpu_radial = f64::INFINITY;
     let mut fc: Option<CmbForecast> = None;
     for _ in 0..reps {
         let t = Instant::now();
+        let c0 = cpu_s();
         let plan = BispectrumPlan::new(&inp);
+        cpu_radial = cpu_radial.min(cpu_s() - c0);
         let t_plan = t.elapsed().as_secs_f64();
         let t = Instant::now();
         let f = cmb_fisher_with_plan(&plan, &grid, true);
@@ -163,6 +184,20 @@ fn main() {
         fc = Some(f);
     }
     let fc = fc.expect("at least one repetition");
+    // The same radial functions through the on-disk cache (written on the first run of
+    // the bench, read afterwards): best of `reps` reads.
+    let (_, first) = BispectrumPlan::new_cached(&inp, &cache);
+    let mut t_radial_read = f64::INFINITY;
+    let mut read_status = first.label();
+    for _ in 0..reps {
+        let (plan, st) = BispectrumPlan::new_cached(&inp, &cache);
+        t_radial_read = t_radial_read.min(plan.times().radial_s);
+        read_status = st.label();
+    }
+    let radial_file_mb = first
+        .path()
+        .and_then(|p| std::fs::metadata(p).ok())
+        .map_or(0.0, |m| m.len() as f64 / 1e6);
     let st = &fc.stats;
     let [t_radial, t_cinv, t_compress, t_sums, t_engine] = best;
     let total = t_transfer + t_lensing + t_engine;
@@ -181,7 +216,11 @@ fn main() {
     println!("  stage times (engine stages: best of {reps}):");
     println!("    transfer table, read from the cache    {t_transfer:7.2} s");
     println!("    lensed covariance spectra (lensing)    {t_lensing:7.2} s");
-    println!("    radial functions X_l(r)                {t_radial:7.2} s");
+    println!("    radial functions X_l(r), computed      {t_radial:7.2} s (CPU {cpu_radial:.2} s)");
+    println!(
+        "    radial functions, read from the cache  {t_radial_read:7.2} s ({radial_file_mb:.1} MB file; first request {}, then {read_status})",
+        first.label()
+    );
     println!("    inverse covariances (2x2 T+E per l)    {t_cinv:7.2} s");
     println!("    active ranges + compressed bases       {t_compress:7.2} s");
     println!("    mu sums (block products + triples)     {t_sums:7.2} s");
@@ -223,7 +262,7 @@ fn main() {
     for (ifs, fs) in fc.field_sets.iter().enumerate() {
         let sig = fc.fisher[ifs].last().expect("grid").sigma_marginal_or_inf();
         println!(
-            "  {:>3} sigma_marginal(local, equilateral, orthogonal) at l_max = {lmax}: {:.4}, {:.3}, {:.3}",
+            "  {:>3} sigma_marginal(local, equilateral, orthogonal) at l_max = {lmax}: {:.7e}, {:.7e}, {:.7e}",
             fs.label(),
             sig[0],
             sig[1],

@@ -341,7 +341,13 @@ fn build_cmb_pieces(
         parallel,
         signal_cl: lensed.as_ref(),
     };
-    let plan = BispectrumPlan::new(&inp);
+    let (plan, radial_cache) = BispectrumPlan::new_cached(&inp, &settings.cache);
+    if let Value::Object(m) = &mut meta {
+        m.insert("radial_cache".into(), Value::from(radial_cache.label()));
+        if let Some(w) = radial_cache.warning() {
+            m.insert("radial_cache_warning".into(), Value::from(w));
+        }
+    }
     Ok(CmbPieces {
         table,
         radial,

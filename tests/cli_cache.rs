@@ -109,6 +109,8 @@ fn cache_dir_and_no_cache_flags() {
         "{}",
         e["inputs"]
     );
+    // Its radial functions are stored beside the table ...
+    assert_eq!(e["inputs"]["radial_cache"], "written", "{}", e["inputs"]);
     let scenario = work.join("s.toml");
     std::fs::write(
         &scenario,
@@ -131,6 +133,12 @@ fn cache_dir_and_no_cache_flags() {
         ],
     ));
     assert_eq!(r["inputs"]["transfer"]["cache"]["status"], "hit");
+    // ... and read back by a run on the same table, shapes, radial grid and l_max.
+    assert_eq!(
+        r["inputs"]["transfer"]["radial_cache"], "hit",
+        "{}",
+        r["inputs"]
+    );
     let plan = work.join("p.toml");
     std::fs::write(
         &plan,
@@ -159,7 +167,9 @@ fn cache_dir_and_no_cache_flags() {
     let s: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(&summaries[0]).unwrap()).unwrap();
     assert_eq!(s["inputs"]["transfer"]["cache"]["status"], "hit");
-    // One transfer table, plus the lensed spectra of the runs (lensed covariance).
+    assert_eq!(s["inputs"]["transfer"]["radial_cache"], "hit");
+    // One transfer table, plus the lensed spectra of the runs (lensed covariance) and
+    // one file of radial functions.
     let names: Vec<String> = files_in(&flag_dir)
         .iter()
         .map(|p| p.file_name().unwrap().to_string_lossy().into_owned())
@@ -170,10 +180,15 @@ fn cache_dir_and_no_cache_flags() {
         1,
         "{names:?}"
     );
+    assert_eq!(
+        names.iter().filter(|n| n.starts_with("radial-")).count(),
+        1,
+        "{names:?}"
+    );
     assert!(
-        names
-            .iter()
-            .all(|n| n.starts_with("transfer-") || n.starts_with("lensing-")),
+        names.iter().all(|n| n.starts_with("transfer-")
+            || n.starts_with("lensing-")
+            || n.starts_with("radial-")),
         "{names:?}"
     );
     assert_eq!(s["inputs"]["transfer"]["lensing_cache"], "hit");

@@ -162,7 +162,7 @@ pub fn cmb_report(
         parallel: opts.parallel,
         signal_cl: lensing.as_ref().map(|l| &l.lensed),
     };
-    let plan = BispectrumPlan::new(&inp);
+    let (plan, radial_cache) = BispectrumPlan::new_cached(&inp, &opts.cache);
     let mut fc = cmb_fisher_with_plan(&plan, &lmax, opts.parallel);
     if opts.shapes.is_empty() {
         fc.shapes.clear();
@@ -224,6 +224,9 @@ pub fn cmb_report(
             None => "lensing_bias: not computed (needs --transfer full, the lensing potential of our Boltzmann solver)".into(),
         },
     ];
+    if let Some(w) = radial_cache.warning() {
+        r.notes.push(format!("warning: {w}"));
+    }
     r.inputs = json!({
         "cosmology": super::cosmology_json(c, cosmo_source),
         "experiment": exp,
@@ -234,6 +237,7 @@ pub fn cmb_report(
         "cmb_spectra": opts.spectra.label(),
         "delensing": opts.delensing,
         "lensing_cache": lensing_cache,
+        "radial_cache": radial_cache.label(),
         "radial_nodes": radial.len(),
         "k_nodes": table.k().len(),
     });

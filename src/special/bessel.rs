@@ -509,13 +509,25 @@ pub fn sph_bessel_all_l(lmax: u32, x: f64, out: &mut [f64]) {
     if top == lm {
         return;
     }
-    let mut r = cf1_ratio(top, x);
-    out[top as usize] = r;
-    for l in (lm as usize + 1..top as usize).rev() {
+    sph_bessel_tail(lm as usize, top as usize, x, out);
+}
+
+/// Fills `out[l] = j_l(x)` for l in lm+1..=top from `out[lm]` = j_lm(x) (x > 0, top > lm):
+/// the ratios j_l / j_(l-1) by downward recurrence from the continued fraction at `top`
+/// (stable at every l: j_l is the minimal solution), then multiplied up from `out[lm]`.
+/// The upper part of [`sph_bessel_all_l`]; the CMB radial functions run the upward part
+/// for many arguments side by side and finish each with this.
+///
+/// # Panics
+/// If `out.len() <= top` (a caller's programming error).
+pub fn sph_bessel_tail(lm: usize, top: usize, x: f64, out: &mut [f64]) {
+    let mut r = cf1_ratio(top as u32, x);
+    out[top] = r;
+    for l in (lm + 1..top).rev() {
         r = x / ((2 * l + 1) as f64 - x * r);
         out[l] = r;
     }
-    for l in lm as usize + 1..=top as usize {
+    for l in lm + 1..=top {
         out[l] *= out[l - 1];
     }
 }

@@ -23,7 +23,8 @@
 //! values gives the whole cumulative grid in one pass. Cost: N_mu x N_pairs x N_r^2 x
 //! (fields x l_max) multiply-adds.
 //!
-//! Layout: `plan` (radial functions and inverse covariances), `compress` (the
+//! Layout: `plan` (radial functions and inverse covariances), `radial_cache` (the
+//! radial functions on disk, shared between experiments and runs), `compress` (the
 //! per-block low-rank bases), `engine` (the mu sums over blocks and the l_max grid),
 //! `kernel` (the per-mu block update and triple products), `simd` (run-time selection of
 //! vector instructions for the hot loops), `oracle` (the brute-force triple sum).
@@ -33,6 +34,7 @@ mod engine;
 mod kernel;
 mod oracle;
 mod plan;
+mod radial_cache;
 mod simd;
 #[cfg(test)]
 pub(crate) mod tests;
@@ -41,6 +43,7 @@ pub use engine::cmb_fisher_with_options;
 pub use kernel::legendre_all;
 pub use oracle::brute_force_fisher;
 pub use plan::{BispectrumPlan, PlanTimes};
+pub use radial_cache::RadialCacheStatus;
 
 use crate::cmb::experiment::Experiment;
 use crate::cmb::lensing::LensedSpectra;

@@ -61,6 +61,7 @@ dispatch! {
 }
 
 dispatch! {
-    /// The radial functions at one radial node (see [`super::plan::radial_row_impl`]).
-    fn radial_row(ctx: &super::plan::RadialCtx<'_>, ir: usize, out: &mut [f64]) => super::plan::radial_row_impl
+    /// The radial functions at a group of radial nodes (see
+    /// [`super::plan::radial_rows_impl`]).
+    fn radial_rows(ctx: &super::plan::RadialCtx<'_>, ir0: usize, out: &mut [f64]) => super::plan::radial_rows_impl
 }
