@@ -41,7 +41,7 @@ use crate::error::Result;
 const MAGIC: &[u8; 8] = b"NGRTRANS";
 const FORMAT_VERSION: u32 = 1;
 /// Bumped whenever the solver's numerics change what it computes.
-pub(crate) const SOLVER_VERSION: u64 = 5;
+pub(crate) const SOLVER_VERSION: u64 = 6;
 const HEADER_LEN: usize = 40;
 /// Default size limit of the cache directory's tables, in GB.
 const DEFAULT_MAX_GB: f64 = 4.0;

@@ -146,6 +146,18 @@
 //! convergence test in tests/boltzmann.rs). The Weyl potential for CMB lensing comes from
 //! the same modes ([`BoltzmannSolver::weyl_table`], module `weyl`).
 //!
+//! ## Cost (l_max = 3000, precision 1; measured with stage timers and perf)
+//! CPU time splits as: thermal history ~0.05 s (the recombination ODE, stopping on each
+//! of ~10^4 table nodes; serial), timeline tables ~0.02 s, 281 mode integrations ~0.45 s
+//! (322 k steps), every-l projection ~0.9 s (2.5e9 lane updates of the fused Bessel
+//! recurrence, two thirds of them at k chi_* > l_max where all 198 recombination nodes
+//! need every l), C_l ~0.03 s. Everything but the recombination ODE runs on the rayon
+//! pool: the timeline in fixed blocks of nodes, the source splines per node, C_l in fixed
+//! k blocks added in order (results do not depend on the thread count). Measured
+//! trade-offs not taken: eps_tca = 0.03 saves 21% of the steps (0.1 s of CPU) but moves
+//! the worst C_l^EE deviation from camb at 2000 < l <= 3000 from 0.14% to 0.21% (0.025:
+//! 13%, 0.18%).
+//!
 //! ## Cache
 //! [`cached_transfer`] stores tables in a binary file format of its own with a header,
 //! length and FNV-1a checksum, keyed by a hash of the parameters (module `cache`).

@@ -255,17 +255,27 @@ pub(crate) fn solve_modes(
         let mut lengths: Vec<usize> = valid.clone();
         lengths.sort_unstable();
         lengths.dedup();
-        for &len in &lengths {
-            if len < 3 {
-                continue;
-            }
-            let fac = SplineFactor::new(&ks[..len]);
-            for node in (0..nn).filter(|&n| valid[n] == len) {
+        let facs: Vec<(usize, SplineFactor)> = lengths
+            .iter()
+            .filter(|&&len| len >= 3)
+            .map(|&len| (len, SplineFactor::new(&ks[..len])))
+            .collect();
+        let per_node = |(node, m): (usize, &mut [f64])| {
+            let len = valid[node];
+            if let Some((_, fac)) = facs.iter().find(|f| f.0 == len) {
                 for s in 0..4 {
                     let off = (node * 4 + s) * nk;
-                    fac.solve(&val[off..off + len], &mut m2[off..off + len]);
+                    fac.solve(&val[off..off + len], &mut m[s * nk..s * nk + len]);
                 }
             }
+        };
+        if parallel {
+            m2.par_chunks_mut(4 * nk)
+                .enumerate()
+                .with_min_len(16)
+                .for_each(per_node);
+        } else {
+            m2.chunks_mut(4 * nk).enumerate().for_each(per_node);
         }
     }
     Ok(SourceTable {

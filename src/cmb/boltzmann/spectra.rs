@@ -2,6 +2,8 @@
 //! C^XY_l = (2/pi) Int k^2 dk P_Phi(k) Delta^X_l(k) Delta^Y_l(k) (dimensionless), at every
 //! l from a [`TransferTable`], or at sampled l with a cubic spline in l of l(l+1) C_l.
 
+use rayon::prelude::*;
+
 use crate::cmb::transfer::{Field, TransferTable};
 use crate::cosmology::Primordial;
 use crate::numerics::CubicSpline;
@@ -26,11 +28,42 @@ impl Spectra {
     pub fn from_table(table: &TransferTable, prim: &Primordial) -> Self {
         let ft = table.field_index(Field::T).expect("table holds T");
         let fe = table.field_index(Field::E).expect("table holds E");
-        let mut s = Self {
-            tt: table.cl(prim, ft, ft),
-            ee: table.cl(prim, fe, fe),
-            te: table.cl(prim, ft, fe),
+        // One pass over the table for all three spectra, in fixed blocks of k summed in
+        // parallel and then added in block order (the same result on any thread count;
+        // equal to `TransferTable::cl` up to the summation order).
+        let n = table.lmax() + 1;
+        let nk = table.k().len();
+        let block = nk.div_ceil(64).max(1);
+        let partial = |b: usize| -> [Vec<f64>; 3] {
+            let mut acc = [vec![0.0; n], vec![0.0; n], vec![0.0; n]];
+            for ik in b * block..((b + 1) * block).min(nk) {
+                let k = table.k()[ik];
+                let a = 2.0 / std::f64::consts::PI * table.weights()[ik] * k * k * prim.p_phi(k);
+                let (rt, re) = (table.row(ft, ik), table.row(fe, ik));
+                let [tt, ee, te] = &mut acc;
+                for l in 0..n {
+                    let (t, e) = (a * rt[l], a * re[l]);
+                    tt[l] += t * rt[l];
+                    ee[l] += e * re[l];
+                    te[l] += t * re[l];
+                }
+            }
+            acc
         };
+        let parts: Vec<[Vec<f64>; 3]> = (0..nk.div_ceil(block))
+            .into_par_iter()
+            .map(partial)
+            .collect();
+        let mut sum = [vec![0.0; n], vec![0.0; n], vec![0.0; n]];
+        for p in &parts {
+            for (s, v) in sum.iter_mut().zip(p) {
+                for (a, b) in s.iter_mut().zip(v) {
+                    *a += b;
+                }
+            }
+        }
+        let [tt, ee, te] = sum;
+        let mut s = Self { tt, ee, te };
         for v in [&mut s.tt, &mut s.ee, &mut s.te] {
             for x in v.iter_mut().take(2) {
                 *x = 0.0;

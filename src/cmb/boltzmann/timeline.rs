@@ -11,6 +11,8 @@
 //! c_s^2 = (k_B T_b / mu c^2) (1 - (1/3) d ln T_b / d ln a), with mu the mean mass per
 //! particle: mu = m_H (1 + f_He m_He/m_H) / (1 + f_He + x_e).
 
+use rayon::prelude::*;
+
 use crate::cmb::ThermalHistory;
 use crate::constants::{C_M_S, HE_TO_H_MASS, K_BOLTZMANN, M_HYDROGEN};
 use crate::cosmology::{Background, Cosmology};
@@ -94,35 +96,67 @@ impl Timeline {
         let om_c = h02 * cosmo.omega_c_h2() / hh;
         let om_l = h02 * cosmo.omega_de();
         let hub_of = |a: f64| a * h0 * cosmo.e2_of_a(a).sqrt();
+        let f_he = th.helium_fraction();
+        let mu_num = M_HYDROGEN * (1.0 + f_he * HE_TO_H_MASS) * C_M_S * C_M_S;
+        let eta_of = |i: usize| {
+            if i + 1 == N_NODES {
+                eta0
+            } else {
+                (u0 + i as f64 * du).exp()
+            }
+        };
+        // Per node: ln a, d ln a / d ln eta, the opacity, T_b and x_e. Blocks of nodes run
+        // in parallel; inside a block, Newton on eta(ln a) = target starts from the
+        // previous node's root, and at a block's first node from the matter-plus-radiation
+        // scale factor a = (Omega_m/4) s^2 + sqrt(Omega_r) s, s = eta H0 / c (converged
+        // to 1e-13 either way).
+        const BLOCK: usize = 1000;
+        let om_m = cosmo.omega_m();
+        let om_r = cosmo.omega_r();
+        let block = |b: usize| -> Vec<[f64; 5]> {
+            let i0 = b * BLOCK;
+            let s0 = eta_of(i0) * h0;
+            let mut x = (0.25 * om_m * s0 * s0 + om_r.sqrt() * s0).ln().min(0.0);
+            (i0..(i0 + BLOCK).min(N_NODES))
+                .map(|i| {
+                    let eta = eta_of(i);
+                    for _ in 0..60 {
+                        let a = x.exp();
+                        let f = bg.conformal_time_a(a) - eta;
+                        let step = f * hub_of(a); // d eta / d ln a = 1 / (aH)
+                        x -= step;
+                        if step.abs() < 1e-13 {
+                            break;
+                        }
+                    }
+                    let xc = x.min(0.0);
+                    let a = xc.exp();
+                    let z = 1.0 / a - 1.0;
+                    [
+                        xc,
+                        eta * hub_of(a),
+                        th.opacity_eta(eta),
+                        th.matter_temperature_k(z),
+                        th.x_e(z),
+                    ]
+                })
+                .collect()
+        };
+        let vals: Vec<[f64; 5]> = (0..N_NODES.div_ceil(BLOCK))
+            .into_par_iter()
+            .map(block)
+            .collect::<Vec<_>>()
+            .concat();
         let mut lna = Vec::with_capacity(N_NODES);
         let mut dlna = Vec::with_capacity(N_NODES);
         let mut lnk = Vec::with_capacity(N_NODES);
         let mut cs2 = Vec::with_capacity(N_NODES);
-        // Newton on eta(ln a) = target, starting from the radiation-era guess.
-        let mut x = (ETA_MIN * h0 * cosmo.omega_r().sqrt()).ln();
-        let f_he = th.helium_fraction();
-        let mu_num = M_HYDROGEN * (1.0 + f_he * HE_TO_H_MASS) * C_M_S * C_M_S;
         let mut t_prev: Option<(f64, f64)> = None;
-        for i in 0..N_NODES {
-            let eta = if i + 1 == N_NODES {
-                eta0
-            } else {
-                (u0 + i as f64 * du).exp()
-            };
-            for _ in 0..60 {
-                let a = x.exp();
-                let f = bg.conformal_time_a(a) - eta;
-                let step = f * hub_of(a); // d eta / d ln a = 1 / (aH)
-                x -= step;
-                if step.abs() < 1e-13 {
-                    break;
-                }
-            }
-            let x = x.min(0.0);
-            let a = x.exp();
+        for (i, &[x, dl, k, tb, xe]) in vals.iter().enumerate() {
+            let eta = eta_of(i);
             lna.push(x);
-            dlna.push(eta * hub_of(a));
-            let mut k = th.opacity_eta(eta);
+            dlna.push(dl);
+            let mut k = k;
             if let Some(f) = xe_ratio {
                 k *= f(1.0 / x.min(0.0).exp() - 1.0);
             }
@@ -133,9 +167,6 @@ impl Timeline {
                 });
             }
             lnk.push(k.ln());
-            let z = 1.0 / a - 1.0;
-            let tb = th.matter_temperature_k(z);
-            let xe = th.x_e(z);
             // d ln T_b / d ln a from the previous node (first order is ample: the term is
             // a 1/3 correction to an already tiny sound speed).
             let dlt = match t_prev {

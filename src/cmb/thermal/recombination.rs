@@ -247,11 +247,14 @@ impl Physics {
         let n_h = self.n_h0 / (a * a * a);
         let hub = self.h0_s * self.e_of_a(a);
         let x_e = x_h + self.f_he * x_he;
-        let saha = (self.cr * tm).powf(1.5);
+        // (The powers below share their logarithms: x^p = exp(p ln x).)
+        let crt = self.cr * tm;
+        let saha = crt * crt.sqrt();
 
         // Hydrogen (SSS99 with the Pequignot et al. 1991 case-B fit).
-        let tt = tm * 1e-4;
-        let alpha_h = FUDGE_H * 1e-19 * PPB[0] * tt.powf(PPB[1]) / (1.0 + PPB[2] * tt.powf(PPB[3]));
+        let ltt = (tm * 1e-4).ln();
+        let alpha_h =
+            FUDGE_H * 1e-19 * PPB[0] * (PPB[1] * ltt).exp() / (1.0 + PPB[2] * (PPB[3] * ltt).exp());
         let beta_h = alpha_h * saha * (-self.t_h_2 / tm).exp();
         let k_h = self.k_h / hub * k_h_correction(-lna);
         let n1s = n_h * y_h;
@@ -265,8 +268,8 @@ impl Physics {
         // Sobolev escape probability and the hydrogen continuum, plus the triplet channel.
         let sq0 = (tm / HE_T2).sqrt();
         let sq1 = (tm / self.he_t1).sqrt();
-        let alpha_he =
-            self.he_q / (sq0 * (1.0 + sq0).powf(1.0 - HE_P) * (1.0 + sq1).powf(1.0 + HE_P));
+        let (l0, l1) = (sq0.ln_1p(), sq1.ln_1p());
+        let alpha_he = self.he_q / (sq0 * ((1.0 - HE_P) * l0 + (1.0 + HE_P) * l1).exp());
         let beta_he = 4.0 * alpha_he * saha * (-self.t_he_2s_ion / tm).exp();
         // Ground-state HeI density; Doppler width over frequency; n_HeI / n_HI enters the
         // continuum-opacity parameter gamma.
@@ -296,8 +299,8 @@ impl Physics {
         // the 2^3P_1 -> 1^1S intercombination line with Sobolev and continuum escape (the
         // continuum term enters with 1/3, as fitted). Detailed balance from 2^3S carries
         // 2 g_HeII / g_23S = 4/3, and its population relative to 1^1S the weight 3.
-        let alpha_t = self.he_q_t
-            / (sq0 * (1.0 + sq0).powf(1.0 - HE_TRIPLET_P) * (1.0 + sq1).powf(1.0 + HE_TRIPLET_P));
+        let alpha_t =
+            self.he_q_t / (sq0 * ((1.0 - HE_TRIPLET_P) * l0 + (1.0 + HE_TRIPLET_P) * l1).exp());
         let beta_t = 4.0 / 3.0 * alpha_t * saha * (-self.t_he_2st_ion / tm).exp();
         let tau_t = 3.0 * A_HE_2P_TRIPLET * self.k_he_t * n_he1 / hub;
         let esc_t = A_HE_2P_TRIPLET
