@@ -7,7 +7,8 @@
 //! the lensed covariance. Environment: `NGREACH_BENCH_LMAX` (default 3000),
 //! `NGREACH_BENCH_REPS` (repetitions of the engine stages, default 3; the minimum is
 //! printed, as other work on a shared machine only ever adds time),
-//! `NGREACH_BENCH_ORACLE=0` skips the brute-force comparison (about a minute).
+//! `NGREACH_BENCH_ORACLE=0` skips the brute-force comparison (about a minute),
+//! `NGREACH_BENCH_TOL` sets the compression tolerance (default: the engine's).
 //!
 //! Prints
 //! - the wall time of each stage: transfer table (cache read), lensed covariance spectra,
@@ -24,7 +25,8 @@
 use std::time::Instant;
 
 use ngreach::cmb::bispectrum::{
-    BispectrumPlan, CmbFisherInput, CmbForecast, FieldSet, brute_force_fisher, cmb_fisher_with_plan,
+    BispectrumPlan, CmbFisherInput, CmbForecast, EngineOptions, FieldSet, brute_force_fisher,
+    cmb_fisher_with_options,
 };
 use ngreach::cmb::boltzmann::CacheOptions;
 use ngreach::cmb::experiment::Experiment;
@@ -118,6 +120,13 @@ fn env_usize(name: &str, default: usize) -> usize {
 fn main() {
     let lmax = env_usize("NGREACH_BENCH_LMAX", 3000);
     let reps = env_usize("NGREACH_BENCH_REPS", 3).max(1);
+    let opts = EngineOptions {
+        tol: std::env::var("NGREACH_BENCH_TOL")
+            .ok()
+            .and_then(|s| s.parse().ok())
+            .unwrap_or(EngineOptions::default().tol),
+        ..EngineOptions::default()
+    };
     let threads = rayon::current_num_threads();
     let c = Cosmology::planck2018();
     let bg = Background::new(&c);
@@ -167,7 +176,7 @@ fn main() {
         cpu_radial = cpu_radial.min(cpu_s() - c0);
         let t_plan = t.elapsed().as_secs_f64();
         let t = Instant::now();
-        let f = cmb_fisher_with_plan(&plan, &grid, true);
+        let f = cmb_fisher_with_options(&plan, &grid, true, &opts);
         let t_engine = t.elapsed().as_secs_f64();
         let pt = plan.times();
         let st = &f.stats;
@@ -230,7 +239,8 @@ fn main() {
         6.0 / total
     );
     println!(
-        "  blocks {}, mean rank {:.1} (largest {}), mean radial width {:.1}, low/high split at l = {:?} (core {:?} nodes), {} mu nodes, {} triples",
+        "  compression tolerance {:e}; blocks {}, mean rank {:.1} (largest {}), mean radial width {:.1}, low/high split at l = {:?} (core {:?} nodes), {} mu nodes, {} triples",
+        st.compression_tol,
         st.blocks,
         st.mean_rank,
         st.max_rank,
@@ -291,11 +301,11 @@ fn main() {
     let t_fast = (0..reps)
         .map(|_| {
             let t = Instant::now();
-            std::hint::black_box(cmb_fisher_with_plan(&plan_b, &[lb], true));
+            std::hint::black_box(cmb_fisher_with_options(&plan_b, &[lb], true, &opts));
             t.elapsed().as_secs_f64()
         })
         .fold(f64::INFINITY, f64::min);
-    let fast = cmb_fisher_with_plan(&plan_b, &[lb], true);
+    let fast = cmb_fisher_with_options(&plan_b, &[lb], true, &opts);
     let t4 = Instant::now();
     let brute = brute_force_fisher(&plan_b, 0, lb, true);
     let t_brute = t4.elapsed().as_secs_f64();

@@ -125,10 +125,13 @@ pub struct CmbForecast {
     pub stats: EngineStats,
 }
 
-/// Largest number of multipoles in one compressed block. Measured at l_max = 3000 (mu sums,
-/// full transfer, T+E, on a shared machine): 9.9 s with 64, 8.5 s with 128, 16.6 s with
-/// 256 (the rank grows with the block).
-const BLOCK: usize = 128;
+/// Largest number of multipoles in one compressed block. Measured with the per-field bases
+/// at l_max = 3000 (mu sums of T, E and T+E, three shapes, full transfer, l_max grid every
+/// 500, quiet 2-core machine): 8.3 s with 128, 8.6 s with 192, 7.3 s with 256, 7.5 s with
+/// 320 or 384 (with a grid every 500 these give the same 250-multipole blocks as 256),
+/// 7.3 s with 512. Larger blocks need fewer basis functions in all (Sum of ranks 278 at
+/// 256 against 389 at 128) but each block's M and M V products grow with its rank squared.
+pub(crate) const BLOCK: usize = 256;
 
 /// Default accuracy of the block-compressed radial functions: every multipole's radial
 /// functions (all exponents and fields, each normalized over its block) are reproduced
@@ -206,8 +209,8 @@ pub fn cmb_fisher(inp: &CmbFisherInput<'_>) -> CmbForecast {
 ///
 /// Scheme: the l range is cut into blocks of at most [`BLOCK`] multipoles that end at the
 /// l_max grid values. In each block each field's radial functions are compressed to a
-/// basis of its own, of rank q_f (6-8 for 128 multipoles above l = 250 at the default
-/// tolerance, 34 (T) and 46 (E) for l = 2..126; measured on the full transfer):
+/// basis of its own, of rank q_f (7-11 for 250 multipoles above l = 250 and 41 (T), 50 (E)
+/// for l = 2..251, at the default tolerance; measured on the full transfer):
 /// X^{e,f}_l(r) ~= Sum_q U^f_lq V^{e,f}_q(r) (`compress_block`). Then per mu node
 /// S_ab += V_a^T M V_b with M_{fq,f'q'} = Sum_l (2l+1) P_l(mu) C^-1_{l,ff'} U^f_lq U^f'_lq',
 /// so the matrix products have inner dimension Sum_f q_f instead of (fields x
