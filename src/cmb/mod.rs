@@ -21,6 +21,7 @@
 
 pub mod bispectrum;
 pub mod boltzmann;
+mod cache_file;
 pub mod collapsed;
 pub mod config_budget;
 pub mod experiment;

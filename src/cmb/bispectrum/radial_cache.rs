@@ -11,7 +11,7 @@
 //! row; the primordial spectrum, exponents and taper through the k weights c_e(k) they
 //! produce) and [`RADIAL_VERSION`].
 //!
-//! File format (our own, little endian):
+//! File format (our own, little endian; the framing of [`crate::cmb::cache_file`]):
 //!
 //! ```text
 //! offset  size  content
@@ -32,18 +32,17 @@
 //! 4 exponents, T and E, 160 nodes): about 31 MB; the folder keeps at most
 //! [`MAX_BYTES`] of radial files, least recently used removed first.
 
-use std::io::Write;
 use std::path::{Path, PathBuf};
 
 use super::CmbFisherInput;
 use super::plan::{K_TAPER, PlanLayout, RGROUP, RadialFunctions, XLANES};
 use crate::cmb::boltzmann::{CacheOptions, Fnv1a};
+use crate::cmb::cache_file::{read_framed, write_framed};
 use crate::cmb::transfer::Field;
 
 const MAGIC: &[u8; 8] = b"NGRRADL1";
 /// Bumped whenever the radial-function kernel changes what it computes.
 const RADIAL_VERSION: u64 = 2;
-const HEADER_LEN: usize = 32;
 /// The radial files in a cache folder are pruned to at most this many bytes (about 30
 /// files at l_max = 3000), least recently used first; the file just written is kept.
 const MAX_BYTES: u64 = 1_000_000_000;
@@ -161,17 +160,6 @@ pub(super) fn radial_key(inp: &CmbFisherInput<'_>, layout: &PlanLayout, coefs: &
     h.finish()
 }
 
-/// FNV-1a over 64-bit little-endian words (a changed word always changes the sum: each
-/// step is a bijection of the state). `bytes.len()` must be a multiple of 8.
-fn checksum(bytes: &[u8]) -> u64 {
-    let mut h: u64 = 0xcbf2_9ce4_8422_2325;
-    for w in bytes.chunks_exact(8) {
-        h ^= u64::from_le_bytes(w.try_into().expect("8 bytes"));
-        h = h.wrapping_mul(0x0000_0100_0000_01b3);
-    }
-    h
-}
-
 fn file_of(dir: &Path, key: u64) -> PathBuf {
     dir.join(format!("radial-{key:016x}.bin"))
 }
@@ -251,50 +239,15 @@ fn parse(body: &[u8], dims: [usize; 4]) -> Result<RadialFunctions, String> {
 }
 
 fn read(path: &Path, key: u64, dims: [usize; 4]) -> Result<RadialFunctions, String> {
-    let bytes = std::fs::read(path).map_err(|e| e.to_string())?;
-    if bytes.len() < HEADER_LEN || &bytes[0..8] != MAGIC {
-        return Err("not a radial-function file of this version".into());
+    let body = read_framed(path, MAGIC, key)?;
+    if body.len() % 8 != 0 {
+        return Err("length is not a whole number of values".into());
     }
-    let u64_at = |o: usize| u64::from_le_bytes(bytes[o..o + 8].try_into().expect("8 bytes"));
-    if u64_at(8) != key {
-        return Err("written for other inputs (key differs)".into());
-    }
-    let body = &bytes[HEADER_LEN..];
-    if u64_at(16) != body.len() as u64 || body.len() % 8 != 0 {
-        return Err("length differs from its header (truncated?)".into());
-    }
-    if checksum(body) != u64_at(24) {
-        return Err("checksum mismatch (corrupt)".into());
-    }
-    parse(body, dims)
+    parse(&body, dims)
 }
 
 fn write(path: &Path, key: u64, x: &RadialFunctions, n_r: usize) -> std::io::Result<()> {
-    let dir = path.parent().unwrap_or(Path::new("."));
-    std::fs::create_dir_all(dir)?;
-    let body = payload(x, n_r);
-    // A unique name per write (process and counter), so that two threads writing the
-    // same key never share a temporary file (as the transfer cache does).
-    static COUNTER: std::sync::atomic::AtomicU64 = std::sync::atomic::AtomicU64::new(0);
-    let tmp = dir.join(format!(
-        ".radial-{key:016x}.tmp-{}-{}",
-        std::process::id(),
-        COUNTER.fetch_add(1, std::sync::atomic::Ordering::Relaxed)
-    ));
-    let result = (|| {
-        let mut f = std::io::BufWriter::new(std::fs::File::create(&tmp)?);
-        f.write_all(MAGIC)?;
-        f.write_all(&key.to_le_bytes())?;
-        f.write_all(&(body.len() as u64).to_le_bytes())?;
-        f.write_all(&checksum(&body).to_le_bytes())?;
-        f.write_all(&body)?;
-        f.into_inner().map_err(|e| e.into_error())?.sync_all()?;
-        std::fs::rename(&tmp, path)
-    })();
-    if result.is_err() {
-        let _ = std::fs::remove_file(&tmp);
-    }
-    result
+    write_framed(path, MAGIC, "radial", key, &payload(x, n_r))
 }
 
 /// Removes the least recently used `radial-*.bin` files in `dir` until they total at most

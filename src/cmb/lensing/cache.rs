@@ -5,23 +5,24 @@
 //! stored beside the transfer tables, keyed by a fingerprint of the transfer table they
 //! came from, the output l_max, the delensing fraction and the solver precision.
 //!
-//! File format (our own): the 8-byte magic `NGRLENS1`, the key (u64), the payload length
-//! (u64), an FNV-1a checksum of the payload (u64), then the payload: ten vectors, each a
+//! File format (our own; the framing of [`crate::cmb::cache_file`]): the 8-byte magic
+//! `NGRLENS2`, the key (u64), the payload length (u64), an FNV-1a checksum over the
+//! payload's 64-bit words (u64), then the payload: ten vectors, each a
 //! u64 length followed by little-endian f64 values (unlensed TT, EE, TE; C^{phi phi},
 //! C^{T phi}; lensed TT, EE, TE, BB; C^{E phi}, with length `u64::MAX` for none). A file
 //! that fails any check is recomputed and replaced, never trusted.
 
-use std::io::Write;
 use std::path::{Path, PathBuf};
 
 use super::{LensedSpectra, Lensing, LensingSpectra, UNLENSED_MARGIN, lensing_of};
 use crate::cmb::ThermalHistory;
 use crate::cmb::boltzmann::{CacheOptions, Fnv1a, SOLVER_VERSION, Spectra};
+use crate::cmb::cache_file::{read_framed, write_framed};
 use crate::cmb::transfer::TransferTable;
 use crate::cosmology::{Background, Cosmology};
 use crate::error::Result;
 
-const MAGIC: &[u8; 8] = b"NGRLENS1";
+const MAGIC: &[u8; 8] = b"NGRLENS2";
 /// Bumped whenever the lensing numerics change what they compute.
 const LENSING_VERSION: u64 = 1;
 /// At most this many lensing files are kept (least recently written removed first); each
@@ -161,44 +162,11 @@ fn parse(body: &[u8], delensing: f64) -> Option<Lensing> {
 }
 
 fn read(path: &Path, key: u64, delensing: f64) -> Option<Lensing> {
-    let bytes = std::fs::read(path).ok()?;
-    if bytes.len() < 32 || &bytes[0..8] != MAGIC {
-        return None;
-    }
-    let u64_at = |o: usize| u64::from_le_bytes(bytes[o..o + 8].try_into().expect("8 bytes"));
-    if u64_at(8) != key || u64_at(16) != (bytes.len() - 32) as u64 {
-        return None;
-    }
-    let body = &bytes[32..];
-    let mut sum = Fnv1a::new();
-    sum.bytes(body);
-    if sum.finish() != u64_at(24) {
-        return None;
-    }
-    parse(body, delensing)
+    parse(&read_framed(path, MAGIC, key).ok()?, delensing)
 }
 
 fn write(path: &Path, key: u64, l: &Lensing) -> std::io::Result<()> {
-    let dir = path.parent().unwrap_or(Path::new("."));
-    std::fs::create_dir_all(dir)?;
-    let body = payload(l);
-    let mut sum = Fnv1a::new();
-    sum.bytes(&body);
-    let tmp = dir.join(format!(".lensing-{key:016x}.tmp-{}", std::process::id()));
-    let result = (|| {
-        let mut f = std::io::BufWriter::new(std::fs::File::create(&tmp)?);
-        f.write_all(MAGIC)?;
-        f.write_all(&key.to_le_bytes())?;
-        f.write_all(&(body.len() as u64).to_le_bytes())?;
-        f.write_all(&sum.finish().to_le_bytes())?;
-        f.write_all(&body)?;
-        f.into_inner().map_err(|e| e.into_error())?.sync_all()?;
-        std::fs::rename(&tmp, path)
-    })();
-    if result.is_err() {
-        let _ = std::fs::remove_file(&tmp);
-    }
-    result
+    write_framed(path, MAGIC, "lensing", key, &payload(l))
 }
 
 /// Keeps at most [`MAX_FILES`] lensing files in `dir`, removing the oldest first.
