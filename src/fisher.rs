@@ -211,11 +211,11 @@ impl FisherMatrix {
             .iter()
             .map(|&i| self.names[i].as_str())
             .collect();
-        if let Ok(sub) = self.select(&names) {
-            if let Ok(sig) = sub.sigma_marginal() {
-                for (a, &i) in informative.iter().enumerate() {
-                    out[i] = sig[a];
-                }
+        if let Ok(sub) = self.select(&names)
+            && let Ok(sig) = sub.sigma_marginal()
+        {
+            for (a, &i) in informative.iter().enumerate() {
+                out[i] = sig[a];
             }
         }
         out

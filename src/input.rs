@@ -177,32 +177,32 @@ fn toml_error(source: &Source, e: &toml::de::Error) -> Error {
     };
     let message = e.message().trim().to_string();
     // serde's wording: "unknown field `x`, expected one of `a`, `b`" (or "expected `a`").
-    if let Some(rest) = message.strip_prefix("unknown field `") {
-        if let Some((key, tail)) = rest.split_once('`') {
-            let valid = tail
-                .trim_start_matches(',')
-                .trim()
-                .trim_start_matches("expected one of")
-                .trim_start_matches("expected")
-                .trim()
-                .replace('`', "");
-            let table = table_at(source.text(), e.span().map_or(0, |s| s.start));
-            return Error::UnknownKey {
-                at,
-                table,
-                key: key.to_string(),
-                valid,
-            };
-        }
+    if let Some(rest) = message.strip_prefix("unknown field `")
+        && let Some((key, tail)) = rest.split_once('`')
+    {
+        let valid = tail
+            .trim_start_matches(',')
+            .trim()
+            .trim_start_matches("expected one of")
+            .trim_start_matches("expected")
+            .trim()
+            .replace('`', "");
+        let table = table_at(source.text(), e.span().map_or(0, |s| s.start));
+        return Error::UnknownKey {
+            at,
+            table,
+            key: key.to_string(),
+            valid,
+        };
     }
-    if let Some(rest) = message.strip_prefix("missing field `") {
-        if let Some((key, _)) = rest.split_once('`') {
-            return Error::BadField {
-                at,
-                field: key.to_string(),
-                message: "this key is required here".to_string(),
-            };
-        }
+    if let Some(rest) = message.strip_prefix("missing field `")
+        && let Some((key, _)) = rest.split_once('`')
+    {
+        return Error::BadField {
+            at,
+            field: key.to_string(),
+            message: "this key is required here".to_string(),
+        };
     }
     // Value-level problems name the field; everything else is a syntax error.
     let value_problem = [

@@ -20,7 +20,8 @@
 
 #![deny(unsafe_code)]
 // audited exceptions: the dgemm call in numerics::gemm, the AVX2/FMA dispatch in
-// cmb::bispectrum::simd and in cmb::boltzmann::bessel_sum
+// cmb::bispectrum::simd, the AVX-512/AVX2 dispatch in cmb::boltzmann::bessel_sum and the
+// AVX2 copy of the mode integration in cmb::boltzmann::modes
 #![warn(missing_docs)]
 
 pub mod batch;

@@ -66,22 +66,22 @@ fn mutate(text: &str, rng: &mut Rng) -> String {
             3 | 4 => {
                 // Replace the value of a `key = value` line.
                 let i = rng.below(n);
-                if let Some(l) = lines.get_mut(i) {
-                    if let Some((k, _)) = l.split_once('=') {
-                        *l = format!("{k}= {}", ABSURD[rng.below(ABSURD.len())]);
-                    }
+                if let Some(l) = lines.get_mut(i)
+                    && let Some((k, _)) = l.split_once('=')
+                {
+                    *l = format!("{k}= {}", ABSURD[rng.below(ABSURD.len())]);
                 }
             }
             5 => {
                 // Flip one character.
                 let i = rng.below(n);
-                if let Some(l) = lines.get_mut(i) {
-                    if !l.is_empty() {
-                        let mut b = l.clone().into_bytes();
-                        let j = rng.below(b.len());
-                        b[j] = b"[]=\"#.,0-{}ax\n"[rng.below(14)];
-                        *l = String::from_utf8_lossy(&b).into_owned();
-                    }
+                if let Some(l) = lines.get_mut(i)
+                    && !l.is_empty()
+                {
+                    let mut b = l.clone().into_bytes();
+                    let j = rng.below(b.len());
+                    b[j] = b"[]=\"#.,0-{}ax\n"[rng.below(14)];
+                    *l = String::from_utf8_lossy(&b).into_owned();
                 }
             }
             _ => {

@@ -59,15 +59,15 @@ pub fn validate(o: &SpectraOptions) -> Result<()> {
             "2 <= lmax <= 5000",
         ));
     }
-    if let Some(w) = o.shell_sigma_mpc {
-        if !(w.is_finite() && (0.0..=MAX_SHELL_WIDTH_MPC).contains(&w)) {
-            return Err(Error::out_of_range(
-                Location::Flag("--shell-width".into()),
-                "shell width (Gaussian sigma, Mpc)",
-                w,
-                "0 <= width <= 500 Mpc",
-            ));
-        }
+    if let Some(w) = o.shell_sigma_mpc
+        && !(w.is_finite() && (0.0..=MAX_SHELL_WIDTH_MPC).contains(&w))
+    {
+        return Err(Error::out_of_range(
+            Location::Flag("--shell-width".into()),
+            "shell width (Gaussian sigma, Mpc)",
+            w,
+            "0 <= width <= 500 Mpc",
+        ));
     }
     Ok(())
 }

@@ -288,14 +288,14 @@ pub fn cmb_fisher_with_options(
                         sc.complete((c0, c1));
                         sc.triples(&legs, w_r, (c0, c1), wmu, &mut acc[base..base + n_tr]);
                     }
-                    if g.b1 == pass.blocks.end {
-                        if let Some((k0, k1)) = pass.outside {
-                            let base = (fs * n_slot + nm) * n_tr;
-                            sc.complete((0, n_r));
-                            let out = &mut acc[base..base + n_tr];
-                            sc.triples(&legs, w_r, (0, n_r), wmu, out);
-                            sc.triples(&legs, w_r, (k0, k1), -wmu, out);
-                        }
+                    if g.b1 == pass.blocks.end
+                        && let Some((k0, k1)) = pass.outside
+                    {
+                        let base = (fs * n_slot + nm) * n_tr;
+                        sc.complete((0, n_r));
+                        let out = &mut acc[base..base + n_tr];
+                        sc.triples(&legs, w_r, (0, n_r), wmu, out);
+                        sc.triples(&legs, w_r, (k0, k1), -wmu, out);
                     }
                 }
             }

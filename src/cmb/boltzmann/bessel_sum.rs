@@ -16,7 +16,7 @@
 //! a second time with those features and chosen at run time; elsewhere the portable copy
 //! runs (same operations without fused multiply-adds).
 
-#![allow(unsafe_code)] // one audited use: calling the AVX2/FMA copy after detecting the features
+#![allow(unsafe_code)] // audited: calling the AVX-512 or AVX2/FMA copy after detecting the features
 #![allow(clippy::needless_range_loop)] // lane-indexed loops, written for the vectorizer
 
 use crate::special::bessel::l_cut;
@@ -63,6 +63,15 @@ impl Lanes {
         }
         #[cfg(target_arch = "x86_64")]
         {
+            if std::arch::is_x86_feature_detected!("avx512f")
+                && std::arch::is_x86_feature_detected!("fma")
+            {
+                // SAFETY: the CPU supports AVX-512F and FMA (checked just above), the
+                // only requirement of calling a function compiled with those features.
+                unsafe { run_avx512_fma(self, lmax, acc_t, acc_e, rat) };
+                self.len = 0;
+                return;
+            }
             if std::arch::is_x86_feature_detected!("avx2")
                 && std::arch::is_x86_feature_detected!("fma")
             {
@@ -81,6 +90,19 @@ impl Lanes {
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2,fma")]
 unsafe fn run_avx2_fma(
+    lanes: &Lanes,
+    lmax: usize,
+    acc_t: &mut [f64],
+    acc_e: &mut [f64],
+    rat: &mut [f64],
+) {
+    run_lanes::<true>(lanes, lmax, acc_t, acc_e, rat);
+}
+
+/// The same kernel with 512-bit vectors: the eight lanes fill one register.
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx512f,avx2,fma")]
+unsafe fn run_avx512_fma(
     lanes: &Lanes,
     lmax: usize,
     acc_t: &mut [f64],

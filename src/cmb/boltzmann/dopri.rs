@@ -113,6 +113,7 @@ impl Dopri {
     // The solver's natural arguments; index loops over stages and components mirror the
     // Butcher tableau.
     #[allow(clippy::too_many_arguments, clippy::needless_range_loop)]
+    #[inline(always)]
     pub fn integrate<F, O>(
         &mut self,
         mut f: F,

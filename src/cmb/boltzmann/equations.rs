@@ -139,7 +139,7 @@ impl<'a> Mode<'a> {
     }
 
     /// Metric from the Einstein constraint equations (MB95 Eq. 21a, 21b).
-    #[inline]
+    #[inline(always)]
     fn metric(&self, phase: Phase, b: &BackgroundAt, eta_m: f64, y: &[f64]) -> Metric {
         let k2 = self.k2;
         let lay = self.lay;
@@ -195,12 +195,13 @@ impl<'a> Mode<'a> {
     }
 
     /// Right-hand side dy/d eta in a phase (the state has `lay.len(phase)` entries).
+    #[inline(always)]
     pub fn rhs(&self, phase: Phase, eta: f64, y: &[f64], dy: &mut [f64]) {
         let b = self.tl.at(eta);
         self.rhs_with(phase, &b, eta, y, dy);
     }
 
-    #[inline]
+    #[inline(always)]
     fn rhs_with(&self, phase: Phase, b: &BackgroundAt, eta: f64, y: &[f64], dy: &mut [f64]) {
         let k = self.k;
         let k2 = self.k2;
@@ -308,6 +309,7 @@ impl<'a> Mode<'a> {
 
     /// Line-of-sight sources at `eta` (see the module docs of `boltzmann`), given the
     /// visibility `g` and e^-tau at that time. `dy` is scratch of the phase's length.
+    #[inline(always)]
     pub fn sources(
         &self,
         phase: Phase,

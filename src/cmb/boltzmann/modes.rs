@@ -67,6 +67,7 @@ fn tight_coupling_end(tl: &Timeline, k: f64, eps: f64, earliest: f64, latest: f6
 
 /// Integrates one mode from deep in radiation domination to today.
 #[allow(clippy::too_many_arguments)] // internal: the mode's inputs
+#[inline(always)]
 pub(crate) fn solve_mode(
     k: f64,
     tl: &Timeline,
@@ -104,6 +105,7 @@ pub(crate) fn solve_mode(
 /// calling `record(mode, phase, i, eta, y, scratch)` at every output time `t_out[i]`
 /// (increasing); returns the matter density contrast today and the accepted steps.
 #[allow(clippy::too_many_arguments)] // internal: the mode's inputs
+#[inline(always)]
 pub(crate) fn integrate_mode<R>(
     k: f64,
     tl: &Timeline,
@@ -199,6 +201,25 @@ pub(crate) struct SourceTable {
     pub steps: usize,
 }
 
+/// [`solve_mode`] compiled with AVX2 (wider vectors for the stage sums and the hierarchy;
+/// no fused multiply-adds, so the same bits as the baseline build).
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+#[allow(clippy::too_many_arguments)] // solve_mode's arguments
+#[allow(unsafe_code)] // audited: only called after detecting AVX2
+unsafe fn solve_mode_avx2(
+    k: f64,
+    tl: &Timeline,
+    nodes: &Nodes,
+    n_nodes: usize,
+    plan: &Plan,
+    lay: Layout,
+    f_b: f64,
+    ws: &mut Workspace,
+) -> Result<ModeResult> {
+    solve_mode(k, tl, nodes, n_nodes, plan, lay, f_b, ws)
+}
+
 /// Solves all modes in parallel (or serially) and tabulates their sources.
 #[allow(clippy::too_many_arguments)] // internal: the solve's inputs
 pub(crate) fn solve_modes(
@@ -212,12 +233,21 @@ pub(crate) fn solve_modes(
     parallel: bool,
 ) -> Result<SourceTable> {
     let nk = ks.len();
+    #[allow(unsafe_code)] // audited: the AVX2 copy is called after detecting AVX2
     let job = |ws: &mut Workspace, k: f64| {
         let n = if with_sources {
             nodes.needed(k, plan, 2.0 * plan.ode_dk_high)
         } else {
             0
         };
+        #[cfg(target_arch = "x86_64")]
+        {
+            if std::arch::is_x86_feature_detected!("avx2") {
+                // SAFETY: the CPU supports AVX2 (checked just above), the only
+                // requirement of calling a function compiled with it.
+                return unsafe { solve_mode_avx2(k, tl, nodes, n, plan, lay, f_b, ws) };
+            }
+        }
         solve_mode(k, tl, nodes, n, plan, lay, f_b, ws)
     };
     // Largest k first: they cost most, which balances the parallel queue.

@@ -153,15 +153,15 @@ impl SurveyTable {
             ("b_shot", p.b_shot),
             ("b_shot_p", p.b_shot_p),
         ] {
-            if let Some(x) = v {
-                if !(x.is_finite() && x > 0.0) {
-                    return Err(Error::out_of_range(
-                        src.find_key("survey.priors", field),
-                        &format!("priors.{field}"),
-                        x,
-                        "a prior width (standard deviation) > 0 and finite",
-                    ));
-                }
+            if let Some(x) = v
+                && !(x.is_finite() && x > 0.0)
+            {
+                return Err(Error::out_of_range(
+                    src.find_key("survey.priors", field),
+                    &format!("priors.{field}"),
+                    x,
+                    "a prior width (standard deviation) > 0 and finite",
+                ));
             }
         }
         let opt = |v: &Option<Spanned<f64>>,
@@ -220,17 +220,17 @@ impl SurveyTable {
             5.0,
             "1e-3 <= kmax_h_mpc <= 5",
         )? * h;
-        if let (Some(lo), Some(s)) = (kmin, &self.kmin_h_mpc) {
-            if lo >= kmax {
-                return Err(Error::Conflict {
-                    at: src.at(s),
-                    message: format!(
-                        "kmin_h_mpc = {} is not below kmax_h_mpc = {}: no Fourier modes would remain",
-                        lo / h,
-                        kmax / h
-                    ),
-                });
-            }
+        if let (Some(lo), Some(s)) = (kmin, &self.kmin_h_mpc)
+            && lo >= kmax
+        {
+            return Err(Error::Conflict {
+                at: src.at(s),
+                message: format!(
+                    "kmin_h_mpc = {} is not below kmax_h_mpc = {}: no Fourier modes would remain",
+                    lo / h,
+                    kmax / h
+                ),
+            });
         }
         let sigma_nl = opt(
             &self.sigma_nl,
