@@ -148,8 +148,9 @@
 //!
 //! ## Cost (l_max = 3000, precision 1; measured with stage timers and perf)
 //! CPU time splits as: thermal history ~0.05 s (the recombination ODE, stopping on each
-//! of ~10^4 table nodes; serial), timeline tables ~0.02 s, 281 mode integrations ~0.45 s
-//! (322 k steps), every-l projection ~0.9 s (2.5e9 lane updates of the fused Bessel
+//! of ~10^4 table nodes; serial), timeline tables ~0.02 s, 281 mode integrations ~0.33 s
+//! (322 k steps, in an AVX2 copy where the CPU has it: same bits), every-l projection
+//! ~0.6 s with AVX-512 (~0.85 s with AVX2; 2.5e9 lane updates of the fused Bessel
 //! recurrence, two thirds of them at k chi_* > l_max where all 198 recombination nodes
 //! need every l), C_l ~0.03 s. Everything but the recombination ODE runs on the rayon
 //! pool: the timeline in fixed blocks of nodes, the source splines per node, C_l in fixed
