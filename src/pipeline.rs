@@ -344,7 +344,7 @@ fn build_cmb_pieces(
     let (plan, radial_cache) = BispectrumPlan::new_cached(&inp, &settings.cache);
     if let Value::Object(m) = &mut meta {
         m.insert("radial_cache".into(), Value::from(radial_cache.label()));
-        if let Some(w) = radial_cache.warning() {
+        if let Some(w) = radial_cache.warning("radial-function") {
             m.insert("radial_cache_warning".into(), Value::from(w));
         }
     }

@@ -110,7 +110,7 @@ fn cache_dir_and_no_cache_flags() {
         e["inputs"]
     );
     // Its radial functions are stored beside the table ...
-    assert_eq!(e["inputs"]["radial_cache"], "written", "{}", e["inputs"]);
+    assert_eq!(e["inputs"]["radial_cache"], "stored", "{}", e["inputs"]);
     let scenario = work.join("s.toml");
     std::fs::write(
         &scenario,

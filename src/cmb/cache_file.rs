@@ -5,7 +5,7 @@
 //! when magic, key, length and checksum all agree.
 
 use std::io::Write;
-use std::path::Path;
+use std::path::{Path, PathBuf};
 
 /// Bytes before the body.
 pub(crate) const HEADER_LEN: usize = 32;
@@ -84,6 +84,40 @@ pub(crate) fn read_framed(path: &Path, magic: &[u8; 8], key: u64) -> Result<Vec<
         return Err("checksum mismatch (corrupt)".into());
     }
     Ok(body)
+}
+
+/// Deletes the least recently modified `<prefix>*.bin` files in `dir` until they total
+/// at most `limit` bytes, never `keep`. Returns the files removed. Best effort: errors
+/// are ignored.
+pub(crate) fn prune_by_size(dir: &Path, prefix: &str, keep: &Path, limit: u64) -> Vec<PathBuf> {
+    let Ok(entries) = std::fs::read_dir(dir) else {
+        return Vec::new();
+    };
+    let mut files: Vec<(std::time::SystemTime, u64, PathBuf)> = entries
+        .filter_map(|e| e.ok())
+        .filter_map(|e| {
+            let p = e.path();
+            let name = p.file_name()?.to_str()?;
+            if !(name.starts_with(prefix) && name.ends_with(".bin")) {
+                return None;
+            }
+            let m = e.metadata().ok()?;
+            Some((m.modified().ok()?, m.len(), p))
+        })
+        .collect();
+    let mut total: u64 = files.iter().map(|f| f.1).sum();
+    files.sort_by_key(|f| f.0);
+    let mut removed = Vec::new();
+    for (_, len, p) in files {
+        if total <= limit {
+            break;
+        }
+        if p != keep && std::fs::remove_file(&p).is_ok() {
+            total = total.saturating_sub(len);
+            removed.push(p);
+        }
+    }
+    removed
 }
 
 #[cfg(test)]

@@ -224,7 +224,7 @@ pub fn cmb_report(
             None => "lensing_bias: not computed (needs --transfer full, the lensing potential of our Boltzmann solver)".into(),
         },
     ];
-    if let Some(w) = radial_cache.warning() {
+    if let Some(w) = radial_cache.warning("radial-function") {
         r.notes.push(format!("warning: {w}"));
     }
     r.inputs = json!({

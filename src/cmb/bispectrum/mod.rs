@@ -43,7 +43,6 @@ pub use engine::cmb_fisher_with_options;
 pub use kernel::legendre_all;
 pub use oracle::brute_force_fisher;
 pub use plan::{BispectrumPlan, PlanTimes};
-pub use radial_cache::RadialCacheStatus;
 
 use crate::cmb::experiment::Experiment;
 use crate::cmb::lensing::LensedSpectra;
@@ -131,7 +130,7 @@ pub struct CmbForecast {
 /// 320 or 384 (with a grid every 500 these give the same 250-multipole blocks as 256),
 /// 7.3 s with 512. Larger blocks need fewer basis functions in all (Sum of ranks 278 at
 /// 256 against 389 at 128) but each block's M and M V products grow with its rank squared.
-pub(crate) const BLOCK: usize = 256;
+const BLOCK: usize = 256;
 
 /// Default accuracy of the block-compressed radial functions: every multipole's radial
 /// functions (all exponents and fields, each normalized over its block) are reproduced

@@ -55,7 +55,7 @@ impl BispectrumPlan {
     pub fn new_cached(
         inp: &CmbFisherInput<'_>,
         cache: &crate::cmb::boltzmann::CacheOptions,
-    ) -> (Self, super::radial_cache::RadialCacheStatus) {
+    ) -> (Self, crate::cmb::boltzmann::CacheStatus) {
         let t_radial = std::time::Instant::now();
         let layout = PlanLayout::of(inp);
         let coefs = radial_coefs(inp, &layout.exponents);

@@ -36,8 +36,8 @@ use std::path::{Path, PathBuf};
 
 use super::CmbFisherInput;
 use super::plan::{K_TAPER, PlanLayout, RGROUP, RadialFunctions, XLANES};
-use crate::cmb::boltzmann::{CacheOptions, Fnv1a};
-use crate::cmb::cache_file::{read_framed, write_framed};
+use crate::cmb::boltzmann::{CacheOptions, CacheStatus, Fnv1a};
+use crate::cmb::cache_file::{prune_by_size, read_framed, write_framed};
 use crate::cmb::transfer::Field;
 
 const MAGIC: &[u8; 8] = b"NGRRADL1";
@@ -46,69 +46,6 @@ const RADIAL_VERSION: u64 = 2;
 /// The radial files in a cache folder are pruned to at most this many bytes (about 30
 /// files at l_max = 3000), least recently used first; the file just written is kept.
 const MAX_BYTES: u64 = 1_000_000_000;
-
-/// What the radial-function cache did for one plan.
-#[derive(Debug, Clone, PartialEq, Eq)]
-pub enum RadialCacheStatus {
-    /// The cache is switched off (`--no-cache`) or has no folder: computed, not stored.
-    Off,
-    /// Read from this file.
-    Hit(PathBuf),
-    /// Not cached before: computed and written to this file.
-    Written(PathBuf),
-    /// The file existed but was not trusted (`reason`): recomputed and replaced.
-    Replaced {
-        /// The file.
-        path: PathBuf,
-        /// Why it was rejected (checksum, truncated, other key, ...).
-        reason: String,
-    },
-    /// Not cached; computed, but writing the file failed (`reason`).
-    Miss {
-        /// The file.
-        path: PathBuf,
-        /// The I/O error.
-        reason: String,
-    },
-}
-
-impl RadialCacheStatus {
-    /// `off`, `hit`, `written`, `replaced` or `miss` (computed, could not be written).
-    pub fn label(&self) -> &'static str {
-        match self {
-            Self::Off => "off",
-            Self::Hit(_) => "hit",
-            Self::Written(_) => "written",
-            Self::Replaced { .. } => "replaced",
-            Self::Miss { .. } => "miss",
-        }
-    }
-
-    /// The cache file involved, if any.
-    pub fn path(&self) -> Option<&Path> {
-        match self {
-            Self::Off => None,
-            Self::Hit(p) | Self::Written(p) => Some(p),
-            Self::Replaced { path, .. } | Self::Miss { path, .. } => Some(path),
-        }
-    }
-
-    /// A warning to show the user: a rejected (corrupt or mismatched) file, or a failed
-    /// write; `None` otherwise.
-    pub fn warning(&self) -> Option<String> {
-        match self {
-            Self::Replaced { path, reason } => Some(format!(
-                "radial-function cache file {} was not trusted ({reason}); recomputed and replaced",
-                path.display()
-            )),
-            Self::Miss { path, reason } => Some(format!(
-                "radial functions could not be cached in {}: {reason}",
-                path.display()
-            )),
-            _ => None,
-        }
-    }
-}
 
 /// The key of a radial-function request (see the module docs for what it covers).
 pub(super) fn radial_key(inp: &CmbFisherInput<'_>, layout: &PlanLayout, coefs: &[Vec<f64>]) -> u64 {
@@ -250,36 +187,6 @@ fn write(path: &Path, key: u64, x: &RadialFunctions, n_r: usize) -> std::io::Res
     write_framed(path, MAGIC, "radial", key, &payload(x, n_r))
 }
 
-/// Removes the least recently used `radial-*.bin` files in `dir` until they total at most
-/// `limit` bytes, never `keep`. Best effort.
-fn prune(dir: &Path, keep: &Path, limit: u64) {
-    let Ok(entries) = std::fs::read_dir(dir) else {
-        return;
-    };
-    let mut files: Vec<(std::time::SystemTime, u64, PathBuf)> = entries
-        .filter_map(|e| e.ok())
-        .filter_map(|e| {
-            let p = e.path();
-            let name = p.file_name()?.to_str()?;
-            if !(name.starts_with("radial-") && name.ends_with(".bin")) {
-                return None;
-            }
-            let m = e.metadata().ok()?;
-            Some((m.modified().ok()?, m.len(), p))
-        })
-        .collect();
-    let mut total: u64 = files.iter().map(|f| f.1).sum();
-    files.sort_by_key(|f| f.0);
-    for (_, len, p) in files {
-        if total <= limit {
-            break;
-        }
-        if p != keep && std::fs::remove_file(&p).is_ok() {
-            total = total.saturating_sub(len);
-        }
-    }
-}
-
 /// The radial functions through the cache: read when a trusted file exists, else
 /// `compute()` and store.
 pub(super) fn cached_radial(
@@ -288,9 +195,12 @@ pub(super) fn cached_radial(
     coefs: &[Vec<f64>],
     cache: &CacheOptions,
     compute: impl FnOnce() -> RadialFunctions,
-) -> (RadialFunctions, RadialCacheStatus) {
+) -> (RadialFunctions, CacheStatus) {
+    if cache.disabled {
+        return (compute(), CacheStatus::Disabled);
+    }
     let Some(dir) = cache.resolve_dir() else {
-        return (compute(), RadialCacheStatus::Off);
+        return (compute(), CacheStatus::NoDirectory);
     };
     let key = radial_key(inp, layout, coefs);
     let path = file_of(&dir, key);
@@ -308,7 +218,7 @@ pub(super) fn cached_radial(
                 if let Ok(f) = std::fs::File::options().append(true).open(&path) {
                     let _ = f.set_modified(std::time::SystemTime::now());
                 }
-                return (x, RadialCacheStatus::Hit(path));
+                return (x, CacheStatus::Hit(path));
             }
             Err(reason) => Some(reason),
         }
@@ -317,15 +227,15 @@ pub(super) fn cached_radial(
     };
     let x = compute();
     let status = match write(&path, key, &x, n_r) {
-        Err(e) => RadialCacheStatus::Miss {
+        Err(e) => CacheStatus::StoreFailed {
             path,
             reason: e.to_string(),
         },
         Ok(()) => {
-            prune(&dir, &path, MAX_BYTES);
+            prune_by_size(&dir, "radial-", &path, MAX_BYTES);
             match previous {
-                Some(reason) => RadialCacheStatus::Replaced { path, reason },
-                None => RadialCacheStatus::Written(path),
+                Some(reason) => CacheStatus::Replaced { path, reason },
+                None => CacheStatus::Stored(path),
             }
         }
     };
@@ -404,12 +314,12 @@ mod tests {
         let fresh = BispectrumPlan::new(&inp);
 
         let (written, st) = BispectrumPlan::new_cached(&inp, &cache);
-        assert_eq!(st.label(), "written", "{st:?}");
-        assert!(st.warning().is_none());
+        assert_eq!(st.label(), "stored", "{st:?}");
+        assert!(st.warning("radial-function").is_none());
         let files = radial_files(&dir);
         assert_eq!(files.len(), 1, "{files:?}");
         let (hit, st) = BispectrumPlan::new_cached(&inp, &cache);
-        assert_eq!(st, RadialCacheStatus::Hit(files[0].clone()));
+        assert_eq!(st, CacheStatus::Hit(files[0].clone()));
         assert!(same_radial(&fresh, &written) && same_radial(&fresh, &hit));
         let f_fresh = cmb_fisher_with_plan(&fresh, &grid, true);
         let f_hit = cmb_fisher_with_plan(&hit, &grid, true);
@@ -429,7 +339,10 @@ mod tests {
         std::fs::write(&files[0], &bytes).unwrap();
         let (again, st) = BispectrumPlan::new_cached(&inp, &cache);
         assert_eq!(st.label(), "replaced", "{st:?}");
-        assert!(st.warning().unwrap().contains("checksum"), "{st:?}");
+        assert!(
+            st.warning("radial-function").unwrap().contains("checksum"),
+            "{st:?}"
+        );
         assert!(same_radial(&fresh, &again));
         assert_eq!(BispectrumPlan::new_cached(&inp, &cache).1.label(), "hit");
         // A truncated file is refused too.
@@ -450,7 +363,7 @@ mod tests {
             input(&tr, &radial, &exp, &shapes, &grid2),
         ] {
             let (p, st) = BispectrumPlan::new_cached(&other, &cache);
-            assert_eq!(st.label(), "written", "{st:?}");
+            assert_eq!(st.label(), "stored", "{st:?}");
             assert!(same_radial(&p, &BispectrumPlan::new(&other)));
         }
         assert_eq!(radial_files(&dir).len(), 4);
@@ -461,7 +374,7 @@ mod tests {
         assert_eq!(st.label(), "hit");
 
         let (p, st) = BispectrumPlan::new_cached(&inp, &CacheOptions::disabled());
-        assert_eq!(st, RadialCacheStatus::Off);
+        assert_eq!(st, CacheStatus::Disabled);
         assert!(same_radial(&fresh, &p));
         std::fs::remove_dir_all(&dir).ok();
     }

@@ -146,6 +146,22 @@ impl CacheStatus {
         }
     }
 
+    /// A warning for the user about the cache file of `what` (e.g. "radial-function"):
+    /// a rejected (corrupt or mismatched) file, or a failed store; `None` otherwise.
+    pub fn warning(&self, what: &str) -> Option<String> {
+        match self {
+            Self::Replaced { path, reason } => Some(format!(
+                "{what} cache file {} was not trusted ({reason}); recomputed and replaced",
+                path.display()
+            )),
+            Self::StoreFailed { path, reason } => Some(format!(
+                "{what} cache file {} could not be written: {reason}",
+                path.display()
+            )),
+            _ => None,
+        }
+    }
+
     /// As JSON for the outputs' `inputs`: `{"status", "file", "reason"}` (null where
     /// not applicable).
     pub fn to_json(&self) -> serde_json::Value {
@@ -467,37 +483,7 @@ fn max_bytes() -> u64 {
 /// Deletes the oldest `transfer-*.bin` tables in `dir` until they total at most `limit`
 /// bytes, never `keep`. Returns the files removed. Best effort: errors are ignored.
 pub fn prune(dir: &Path, keep: &Path, limit: u64) -> Vec<PathBuf> {
-    let Ok(entries) = std::fs::read_dir(dir) else {
-        return Vec::new();
-    };
-    let mut files: Vec<(std::time::SystemTime, u64, PathBuf)> = entries
-        .filter_map(|e| e.ok())
-        .filter_map(|e| {
-            let p = e.path();
-            let name = p.file_name()?.to_str()?.to_string();
-            if !(name.starts_with("transfer-") && name.ends_with(".bin")) {
-                return None;
-            }
-            let m = e.metadata().ok()?;
-            Some((m.modified().ok()?, m.len(), p))
-        })
-        .collect();
-    let mut total: u64 = files.iter().map(|f| f.1).sum();
-    files.sort_by_key(|f| f.0);
-    let mut removed = Vec::new();
-    for (_, len, p) in files {
-        if total <= limit {
-            break;
-        }
-        if p == keep {
-            continue;
-        }
-        if std::fs::remove_file(&p).is_ok() {
-            total = total.saturating_sub(len);
-            removed.push(p);
-        }
-    }
-    removed
+    crate::cmb::cache_file::prune_by_size(dir, "transfer-", keep, limit)
 }
 
 #[cfg(test)]
