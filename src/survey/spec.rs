@@ -105,6 +105,21 @@ fn yes() -> bool {
     true
 }
 
+impl NuisanceSwitches {
+    /// Every nuisance fixed at its fiducial value (the idealized case, for oracles and
+    /// budgets that say so).
+    pub fn all_fixed() -> Self {
+        Self {
+            b1: false,
+            b2: false,
+            bs2: false,
+            p_shot: false,
+            b_shot: false,
+            b_shot_p: false,
+        }
+    }
+}
+
 impl Default for NuisanceSwitches {
     fn default() -> Self {
         Self {

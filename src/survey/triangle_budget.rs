@@ -230,14 +230,7 @@ mod tests {
             .collect();
         let mut sv = Survey::quick(2.0, 1.0, 5e-4, 2.0, false, 0.6736).unwrap();
         sv.covariance = CovarianceModel::Gaussian;
-        sv.nuisance = NuisanceSwitches {
-            b1: false,
-            b2: false,
-            bs2: false,
-            p_shot: false,
-            b_shot: false,
-            b_shot_p: false,
-        };
+        sv.nuisance = NuisanceSwitches::all_fixed();
         let st = SurveySettings::default();
         let kmax = 0.12;
         let fc = survey_fisher(&sv, &power, &bg, &shapes, &[kmax], &st);

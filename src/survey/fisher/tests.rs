@@ -52,14 +52,7 @@ fn power_spectrum_saturates_at_cosmic_variance() {
     let st = SurveySettings::default();
     let sig = |nbar: f64| {
         let mut sv = quick(nbar, 2.0, true);
-        sv.nuisance = NuisanceSwitches {
-            b1: false,
-            b2: false,
-            bs2: false,
-            p_shot: false,
-            b_shot: false,
-            b_shot_p: false,
-        };
+        sv.nuisance = NuisanceSwitches::all_fixed();
         let fc = survey_fisher(&sv, &s.power, &s.bg, &shapes, &[0.1 * s.h], &st);
         sigma(&fc, 0, 0)
     };
@@ -74,14 +67,7 @@ fn two_tracers_cancel_cosmic_variance() {
     let shapes = [local(s.prim)];
     let st = SurveySettings::default();
     let mut one = quick(1e2, 2.0, true);
-    one.nuisance = NuisanceSwitches {
-        b1: false,
-        b2: false,
-        bs2: false,
-        p_shot: false,
-        b_shot: false,
-        b_shot_p: false,
-    };
+    one.nuisance = NuisanceSwitches::all_fixed();
     let mut two = one.clone();
     let mut t2 = two.tracers[0].clone();
     t2.name = "second".into();
@@ -118,14 +104,7 @@ fn bispectrum_matches_brute_force() {
     sv.bins[0].volume_mpc3 = 1e9;
     // The oracle writes Delta b in its squeezed form.
     sv.response = crate::survey::ResponseModel::SqueezedCut;
-    sv.nuisance = NuisanceSwitches {
-        b1: false,
-        b2: false,
-        bs2: false,
-        p_shot: false,
-        b_shot: false,
-        b_shot_p: false,
-    };
+    sv.nuisance = NuisanceSwitches::all_fixed();
     let kmax = 0.08;
     let fc = survey_fisher(
         &sv,
